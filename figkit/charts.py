@@ -1,0 +1,566 @@
+"""Stage 6a, the chart kinds: how one panel of each kind is drawn.
+
+A chart kind is two functions (see DEVELOPERS.md, "Adding a chart kind"):
+
+* ``prepare(ctx)`` — once per figure, before any panel: everything that must be the same in every
+  panel so panels compare honestly (bin edges, hexagon extent, density grid, colour scale, the
+  overplotting decision).  Results go into ``ctx.shared``.
+* ``draw(ax, panel, ctx) -> dict`` — one panel; returns that panel's numbers for the sidecar.
+
+Its requirements (which fields, options) live in :data:`figkit.spec.CHARTS`.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from . import stats
+from .data import FigureData, Panel
+from .spec import FigureSpec
+from .style import pt_to_mm
+
+INK = "#2B2F33"         # trend lines, medians, text on light tiles
+NEUTRAL = "#4D7FA6"     # single-colour charts (histogram, box, violin, density without colour)
+TREND = "#1B1D1F"
+BAND_ALPHA = 0.18
+MIN_TREND_N = 3          # fewer complete rows: no trend, no band (a note in the sidecar)
+FEW_POINTS = 20          # a smoother or band over fewer points than this earns a caution
+
+
+@dataclass
+class Context:
+    spec: FigureSpec
+    data: FigureData
+    panel_mm: tuple[float, float]
+    colours: dict | None = None          # categorical colour level -> hex
+    cmap: object = None                  # continuous colour: matplotlib colormap
+    norm: object = None
+    colour_title: str = ""
+    shared: dict = field(default_factory=dict)
+    cautions: list = field(default_factory=list)
+    mappables: list = field(default_factory=list)   # artists that share ctx.norm (for the colour bar)
+    used_colours: list = field(default_factory=list)
+
+    def use(self, hex_colour: str) -> str:
+        if hex_colour not in self.used_colours:
+            self.used_colours.append(hex_colour)
+        return hex_colour
+
+
+# ---------------------------------------------------------------------------- helpers
+
+def _values(panels: list[Panel], col: str) -> np.ndarray:
+    arrays = [p.frame[col].to_numpy(dtype=float) for p in panels if p.n]
+    return np.concatenate(arrays) if arrays else np.array([], dtype=float)
+
+
+def _padded(lo: float, hi: float, frac: float = 0.04) -> tuple[float, float]:
+    if not np.isfinite(lo) or not np.isfinite(hi):
+        return 0.0, 1.0
+    if hi <= lo:
+        return lo - 0.5, hi + 0.5
+    pad = (hi - lo) * frac
+    return lo - pad, hi + pad
+
+
+def _groups(panel: Panel, ctx: Context):
+    """(level, hex, frame) per colour group in legend order; one neutral group without colour."""
+    spec = ctx.spec
+    if spec.colour and ctx.colours is not None:
+        by = dict(iter(panel.frame.groupby(spec.colour, sort=False, observed=True)))
+        for level, hexc in ctx.colours.items():
+            if level in by:
+                yield level, hexc, by[level]
+    else:
+        yield None, None, panel.frame
+
+
+def _levels(ctx: Context, fld: str) -> list:
+    return list(ctx.data.levels.get(fld, []))
+
+
+def _note_trend(ctx: Context, panel: Panel, rec: dict, what: str, n: int) -> bool:
+    if n < MIN_TREND_N:
+        rec.setdefault("notes", []).append(f"{what} not drawn: {n} complete rows (needs {MIN_TREND_N})")
+        return False
+    if n < FEW_POINTS:
+        ctx.cautions.append(f"panel '{panel.label or 'all'}': {what} drawn over only {n} points")
+    return True
+
+
+# ---------------------------------------------------------------------------- trends
+
+def draw_trend(ax, panel: Panel, ctx: Context, rec: dict) -> None:
+    spec = ctx.spec
+    if spec.trend == "none":
+        return
+    x = panel.frame[spec.x].to_numpy(dtype=float)
+    y = panel.frame[spec.y].to_numpy(dtype=float)
+    what = "straight-line fit" if spec.trend == "line" else "LOESS smoother"
+    if not _note_trend(ctx, panel, rec, what, len(x)):
+        return
+    if np.ptp(x) == 0:
+        rec.setdefault("notes", []).append(f"{what} not drawn: x is constant")
+        return
+    # Drawn only over the panel's own data range: a trend is never extrapolated.
+    grid = np.linspace(x.min(), x.max(), 120)
+    if spec.trend == "line":
+        fit = stats.fit_line(x, y)
+        yhat, lo, hi = stats.line_band(fit, grid)
+        ax.fill_between(grid, lo, hi, color=TREND, alpha=BAND_ALPHA, linewidth=0, zorder=3)
+        ax.plot(grid, yhat, color=TREND, linewidth=0.9, zorder=4, solid_capstyle="butt")
+        rec["trend"] = {"kind": "line", "slope": fit.slope, "intercept": fit.intercept,
+                        "slope_ci": [fit.slope_ci_low, fit.slope_ci_high], "r": fit.r, "n": fit.n}
+    else:
+        o = spec.options
+        xs, ys = stats.loess(x, y, span=o.get("span", 0.75), degree=o.get("degree", 1),
+                             iterations=o.get("robust", 0))
+        ax.plot(xs, ys, color=TREND, linewidth=0.9, zorder=4)
+        rec["trend"] = {"kind": "loess", "span": o.get("span", 0.75), "degree": o.get("degree", 1),
+                        "robust_iterations": o.get("robust", 0), "n": len(x)}
+
+
+# ---------------------------------------------------------------------------- scatter
+
+def _cell_counts(x, y, xlim, ylim, cells) -> np.ndarray:
+    """Points per marker-sized cell: integer cell indices, one bincount (no per-point work)."""
+    nx, ny = cells
+    ix = np.clip(((x - xlim[0]) / (xlim[1] - xlim[0]) * nx).astype(np.int64), 0, nx - 1)
+    iy = np.clip(((y - ylim[0]) / (ylim[1] - ylim[0]) * ny).astype(np.int64), 0, ny - 1)
+    return np.bincount(ix * ny + iy, minlength=nx * ny)
+
+
+def _discrete_gap(v: np.ndarray) -> float | None:
+    """The smallest gap between distinct values when an axis holds few of them (heavy ties)."""
+    u = np.unique(v)
+    if len(u) < 2 or len(u) > 30 or len(v) < 4 * len(u):
+        return None
+    return float(np.min(np.diff(u)))
+
+
+# Opacity reached by the densest cell when transparency is chosen from the measured density.
+DENSEST_OPACITY = 0.9
+MIN_ALPHA = 0.04         # below this a lone point vanishes: switch to hexagonal bins
+
+
+def choose_drawing(max_per_cell: int, forced: str = "auto") -> tuple[str, float]:
+    """Pick plain points, translucent points or bins from the densest marker-sized cell.
+
+    With k points stacked at opacity a each, the cell's opacity is 1 - (1 - a)^k (alpha
+    compositing, Porter & Duff 1984).  We choose a so that the densest cell reaches
+    DENSEST_OPACITY: a = 1 - (1 - DENSEST_OPACITY)^(1/k).  If that a is below MIN_ALPHA
+    (a single point would be hard to see; common practice) we bin instead.
+    """
+    k = max(int(max_per_cell), 1)
+    alpha = 1.0 - (1.0 - DENSEST_OPACITY) ** (1.0 / k)
+    if forced == "points":
+        return "points", 1.0
+    if forced == "translucent":
+        return "translucent", max(alpha, MIN_ALPHA)
+    if forced == "bins":
+        return "bins", 1.0
+    if k <= 2:
+        return "points", 1.0
+    if alpha < MIN_ALPHA:
+        return "bins", 1.0
+    return "translucent", round(alpha, 4)
+
+
+JITTER_SEED = 20261202   # fixed: the same jitter on every rebuild
+
+
+def prepare_scatter(ctx: Context) -> None:
+    """Measure overlap at the final size and choose how points are drawn (one choice per figure,
+    from its densest panel, so every panel reads the same way)."""
+    spec, panels = ctx.spec, ctx.data.panels
+    x, y = _values(panels, spec.x), _values(panels, spec.y)
+    ctx.shared["xlim"] = _padded(np.nanmin(x), np.nanmax(x)) if x.size else (0, 1)
+    ctx.shared["ylim"] = _padded(np.nanmin(y), np.nanmax(y)) if y.size else (0, 1)
+    marker_mm = pt_to_mm(float(spec.style.rc.get("lines.markersize", 2.5)))
+    cells = (max(1, int(ctx.panel_mm[0] / marker_mm)), max(1, int(ctx.panel_mm[1] / marker_mm)))
+    forced = spec.options.get("points", "auto")
+    jitter = {}
+    if forced in ("auto", "jitter") and x.size:
+        for axis, v in (("x", x), ("y", y)):
+            gap = _discrete_gap(v)
+            if gap is not None:
+                jitter[axis] = 0.4 * gap   # < half the gap: a point never reaches the next value
+    rng = np.random.default_rng(JITTER_SEED)
+    coords, densest = {}, 0
+    for p in panels:
+        px = p.frame[spec.x].to_numpy(dtype=float)
+        py = p.frame[spec.y].to_numpy(dtype=float)
+        if "x" in jitter:
+            px = px + rng.uniform(-jitter["x"], jitter["x"], size=len(px))
+        if "y" in jitter:
+            py = py + rng.uniform(-jitter["y"], jitter["y"], size=len(py))
+        coords[id(p)] = (px, py)
+        if p.n:
+            xl = _padded(px.min(), px.max()) if spec.scales in ("free", "free-x") else ctx.shared["xlim"]
+            yl = _padded(py.min(), py.max()) if spec.scales in ("free", "free-y") else ctx.shared["ylim"]
+            densest = max(densest, int(_cell_counts(px, py, xl, yl, cells).max()))
+    mode, alpha = choose_drawing(densest, "auto" if forced == "jitter" else forced)
+    if jitter and mode != "bins":
+        mode = "jitter"
+    if mode == "bins" and spec.colour:
+        mode, alpha = "translucent", MIN_ALPHA   # bins cannot show colour groups
+        ctx.cautions.append("points too dense for colour groups: drawn at the lowest opacity; "
+                            "consider splitting by the colour field instead")
+    ctx.shared.update(mode=mode, alpha=alpha, cells=cells, densest=densest, jitter=jitter,
+                      coords=coords)
+    if mode == "bins":
+        prepare_hexbins(ctx)
+
+
+def draw_scatter(ax, panel: Panel, ctx: Context) -> dict:
+    spec, sh = ctx.spec, ctx.shared
+    rec = {"drawing": sh["mode"], "max_per_cell": sh["densest"],
+           "cells": list(sh["cells"])}
+    if sh["mode"] == "bins":
+        rec.update(draw_hexbins(ax, panel, ctx))
+        return rec
+    if sh["mode"] != "points":
+        rec["alpha"] = sh["alpha"]
+    px, py = sh["coords"][id(panel)]
+    size = float(spec.style.rc.get("lines.markersize", 2.5)) ** 2
+    alpha = None if sh["mode"] == "points" else sh["alpha"]
+    if spec.colour and ctx.colours is None:          # continuous colour: one collection
+        art = ax.scatter(px, py, c=panel.frame[spec.colour].to_numpy(dtype=float), cmap=ctx.cmap,
+                         norm=ctx.norm, s=size, linewidths=0, alpha=alpha,
+                         rasterized=len(px) > 2000, zorder=2)
+        ctx.mappables.append(art)
+    else:
+        codes = panel.frame[spec.colour].to_numpy() if spec.colour else None
+        for level, hexc, part in _groups(panel, ctx):   # one collection per colour group
+            m = slice(None) if codes is None else (codes == level)
+            ax.scatter(px[m], py[m], color=ctx.use(hexc or NEUTRAL), s=size, linewidths=0,
+                       alpha=alpha, rasterized=len(part) > 2000, zorder=2)
+    if sh["jitter"]:
+        rec["jitter"] = {axis: float(w) for axis, w in sh["jitter"].items()}
+        rec["jitter_seed"] = JITTER_SEED
+    draw_trend(ax, panel, ctx, rec)
+    return rec
+
+
+# ---------------------------------------------------------------------------- hexagonal bins
+
+def prepare_hexbins(ctx: Context) -> None:
+    spec, panels = ctx.spec, ctx.data.panels
+    if "xlim" not in ctx.shared:
+        x, y = _values(panels, spec.x), _values(panels, spec.y)
+        ctx.shared["xlim"] = _padded(np.nanmin(x), np.nanmax(x)) if x.size else (0, 1)
+        ctx.shared["ylim"] = _padded(np.nanmin(y), np.nanmax(y)) if y.size else (0, 1)
+    ctx.shared["hex_collections"] = []
+
+
+def draw_hexbins(ax, panel: Panel, ctx: Context) -> dict:
+    spec, sh = ctx.spec, ctx.shared
+    rec: dict = {"drawing": "bins"}
+    if not panel.n:
+        return rec
+    x = panel.frame[spec.x].to_numpy(dtype=float)
+    y = panel.frame[spec.y].to_numpy(dtype=float)
+    # The same hexagon grid (extent and size) in every panel, so a cell means the same everywhere.
+    xl, yl = sh["xlim"], sh["ylim"]
+    cells = int(spec.options.get("cells", 30))
+    coll = ax.hexbin(x, y, gridsize=cells, extent=(*xl, *yl), mincnt=1, linewidths=0,
+                     cmap=ctx.cmap, rasterized=True, zorder=2)
+    sh["hex_collections"].append(coll)
+    counts = coll.get_array()
+    rec.update(cells_across=cells, max_count=int(counts.max()) if counts.size else 0)
+    draw_trend(ax, panel, ctx, rec)
+    return rec
+
+
+def finish_hexbins(ctx: Context) -> None:
+    """One normalisation for every panel: the same count is the same colour everywhere."""
+    import matplotlib.colors as mcolors
+    colls = ctx.shared.get("hex_collections") or []
+    if not colls:
+        return
+    top = max((float(c.get_array().max()) for c in colls if c.get_array().size), default=1.0)
+    scale = ctx.spec.options.get("scale", "log")
+    ctx.norm = mcolors.LogNorm(1, max(top, 2)) if scale == "log" else mcolors.Normalize(0, max(top, 1))
+    for c in colls:
+        c.set_norm(ctx.norm)
+        c.set_cmap(ctx.cmap)
+    ctx.mappables.extend(colls)
+    ctx.colour_title = "Count per hexagon" + (" (log scale)" if scale == "log" else "")
+
+
+# ---------------------------------------------------------------------------- box and violin
+
+def prepare_groups_y(ctx: Context) -> None:
+    spec, panels = ctx.spec, ctx.data.panels
+    y = _values(panels, spec.y)
+    ctx.shared["ylim"] = _padded(np.nanmin(y), np.nanmax(y)) if y.size else (0, 1)
+    ctx.shared["xlevels"] = _levels(ctx, spec.x)
+
+
+def _by_level(panel: Panel, fld: str, levels: list):
+    by = dict(iter(panel.frame.groupby(fld, sort=False, observed=True)))
+    for i, level in enumerate(levels):
+        yield i, level, by.get(level)
+
+
+def draw_box(ax, panel: Panel, ctx: Context) -> dict:
+    spec = ctx.spec
+    levels = ctx.shared["xlevels"]
+    bxp, groups = [], []
+    for i, level, part in _by_level(panel, spec.x, levels):
+        if part is None or len(part) == 0:
+            continue
+        b = stats.box_stats(part[spec.y].to_numpy(dtype=float), whisker=spec.options.get("whisker", 1.5))
+        bxp.append({"med": b.median, "q1": b.q1, "q3": b.q3, "whislo": b.whisker_low,
+                    "whishi": b.whisker_high, "fliers": b.outliers, "label": str(level), "_pos": i})
+        groups.append({"group": level, "n": b.n, "q1": b.q1, "median": b.median, "q3": b.q3,
+                       "whisker_low": b.whisker_low, "whisker_high": b.whisker_high,
+                       "outliers": int(len(b.outliers))})
+    if bxp:
+        colour = ctx.use(NEUTRAL)
+        ax.bxp([{k: v for k, v in s.items() if k != "_pos"} for s in bxp],
+               positions=[s["_pos"] for s in bxp], widths=0.55, patch_artist=True, showfliers=True,
+               boxprops=dict(facecolor=colour + "40", edgecolor=colour, linewidth=0.6),
+               medianprops=dict(color=INK, linewidth=1.0, solid_capstyle="butt"),
+               whiskerprops=dict(color=colour, linewidth=0.6),
+               capprops=dict(color=colour, linewidth=0.6),
+               flierprops=dict(marker="o", markersize=1.6, markerfacecolor=colour, markeredgewidth=0,
+                               alpha=0.7, rasterized=True))
+    _category_axis(ax, levels)
+    return {"groups": groups}
+
+
+def draw_violin(ax, panel: Panel, ctx: Context) -> dict:
+    spec = ctx.spec
+    levels = ctx.shared["xlevels"]
+    colour = ctx.use(NEUTRAL)
+    groups = []
+    for i, level, part in _by_level(panel, spec.x, levels):
+        if part is None or len(part) < 2:
+            continue
+        v = part[spec.y].to_numpy(dtype=float)
+        if np.ptp(v) == 0:
+            continue
+        bw = stats.kde_bandwidth(v, _bandwidth_rule(spec.options.get("bandwidth", "scott")))
+        grid = np.linspace(v.min(), v.max(), 160)   # clipped to the data: no density past the range
+        dens = stats.kde(v, grid, bw)
+        half = 0.4 * dens / dens.max()
+        ax.fill_betweenx(grid, i - half, i + half, facecolor=colour + "40", edgecolor=colour,
+                         linewidth=0.5, zorder=2)
+        q1, med, q3 = np.percentile(v, [25, 50, 75])
+        ax.plot([i, i], [q1, q3], color=INK, linewidth=1.6, solid_capstyle="butt", zorder=3)
+        ax.plot([i], [med], marker="o", markersize=2.2, color="white", markeredgecolor=INK,
+                markeredgewidth=0.5, zorder=4)
+        groups.append({"group": level, "n": len(v), "bandwidth": bw, "q1": q1, "median": med, "q3": q3})
+    _category_axis(ax, levels)
+    return {"groups": groups}
+
+
+def _bandwidth_rule(text: str):
+    return text if text in ("scott", "silverman") else float(text)
+
+
+def _category_axis(ax, levels: list) -> None:
+    ax.set_xticks(range(len(levels)))
+    ax.set_xticklabels([str(v) for v in levels])
+    ax.set_xlim(-0.6, len(levels) - 0.4)
+    ax.grid(False, axis="x")
+
+
+# ---------------------------------------------------------------------------- density curves
+
+def prepare_density(ctx: Context) -> None:
+    spec, panels = ctx.spec, ctx.data.panels
+    x = _values(panels, spec.x)
+    lo, hi = (np.nanmin(x), np.nanmax(x)) if x.size else (0.0, 1.0)
+    ctx.shared["grid"] = np.linspace(lo, hi, 256)   # shared grid; curves stop at the data range
+    ctx.shared["xlim"] = _padded(lo, hi)
+
+
+def draw_density(ax, panel: Panel, ctx: Context) -> dict:
+    spec = ctx.spec
+    grid = ctx.shared["grid"]
+    groups = []
+    for level, hexc, part in _groups(panel, ctx):
+        v = part[spec.x].to_numpy(dtype=float)
+        if len(v) < 2 or np.ptp(v) == 0:
+            continue
+        if len(v) < FEW_POINTS:
+            ctx.cautions.append(f"panel '{panel.label or 'all'}': density curve over only {len(v)} points")
+        bw = stats.kde_bandwidth(v, _bandwidth_rule(spec.options.get("bandwidth", "scott")))
+        inside = grid[(grid >= v.min() - 3 * bw) & (grid <= v.max() + 3 * bw)]
+        dens = stats.kde(v, inside, bw)
+        colour = ctx.use(hexc or NEUTRAL)
+        ax.fill_between(inside, 0, dens, color=colour, alpha=0.25, linewidth=0, zorder=2)
+        ax.plot(inside, dens, color=colour, linewidth=0.9, zorder=3)
+        groups.append({"group": level, "n": len(v), "bandwidth": bw})
+    ax.set_ylim(bottom=0)
+    return {"groups": groups}
+
+
+# ---------------------------------------------------------------------------- histogram
+
+def prepare_histogram(ctx: Context) -> None:
+    spec, panels = ctx.spec, ctx.data.panels
+    x = _values(panels, spec.x)
+    rule = spec.options.get("bins", "fd")
+    rule = int(float(rule)) if rule not in ("fd", "sturges") else rule
+    # Edges from the pooled data of every panel: the same bins everywhere (comparable panels).
+    ctx.shared["edges"] = stats.bin_edges(x, rule) if x.size else np.linspace(0, 1, 11)
+    ctx.shared["bin_rule"] = rule
+
+
+def draw_histogram(ax, panel: Panel, ctx: Context) -> dict:
+    spec, edges = ctx.spec, ctx.shared["edges"]
+    v = panel.frame[spec.x].to_numpy(dtype=float)
+    counts, _ = np.histogram(v, bins=edges)
+    colour = ctx.use(NEUTRAL)
+    ax.stairs(counts, edges, fill=True, color=colour, alpha=0.85, zorder=2)
+    ax.stairs(counts, edges, color="white", linewidth=0.3, zorder=3)
+    ax.set_ylim(bottom=0)
+    return {"bins": len(edges) - 1, "bin_rule": str(ctx.shared["bin_rule"]),
+            "bin_width": float(edges[1] - edges[0])}
+
+
+# ---------------------------------------------------------------------------- counts
+
+def _counts(frame: pd.DataFrame, keys: list[str], weight: str | None) -> pd.Series:
+    if weight:
+        return frame.groupby(keys, observed=True, sort=False)[weight].sum()
+    return frame.groupby(keys, observed=True, sort=False).size()
+
+
+def prepare_counts(ctx: Context) -> None:
+    ctx.shared["xlevels"] = _levels(ctx, ctx.spec.x)
+
+
+def draw_count_bars(ax, panel: Panel, ctx: Context) -> dict:
+    spec = ctx.spec
+    levels = ctx.shared["xlevels"]
+    groups = list(ctx.colours.items()) if ctx.colours else [(None, NEUTRAL)]
+    k = len(groups)
+    width = 0.8 / k
+    table = []
+    if panel.n:
+        keys = [spec.x] + ([spec.colour] if spec.colour else [])
+        counts = _counts(panel.frame, keys, spec.weight)
+        for j, (level, hexc) in enumerate(groups):
+            heights = []
+            for lv in levels:
+                key = (lv, level) if spec.colour else lv
+                heights.append(float(counts.get(key, 0)))
+            pos = np.arange(len(levels)) - 0.4 + width * (j + 0.5)
+            ax.bar(pos, heights, width=width * 0.92, color=ctx.use(hexc), linewidth=0, zorder=2)
+            for lv, h in zip(levels, heights):
+                table.append({"x": lv, "group": level, "count": h})
+    _category_axis(ax, levels)
+    ax.set_ylim(bottom=0)   # bars always start at zero: a cut axis exaggerates differences
+    return {"counts": table}
+
+
+def draw_shares(ax, panel: Panel, ctx: Context) -> dict:
+    spec = ctx.spec
+    levels = ctx.shared["xlevels"]
+    table = []
+    if panel.n:
+        counts = _counts(panel.frame, [spec.x, spec.colour], spec.weight)
+        mat = np.array([[float(counts.get((lv, g), 0)) for g in ctx.colours] for lv in levels])
+        totals = mat.sum(axis=1)
+        share = stats.shares(mat)
+        bottom = np.zeros(len(levels))
+        for j, (g, hexc) in enumerate(ctx.colours.items()):
+            ax.bar(np.arange(len(levels)), share[:, j], bottom=bottom, width=0.72,
+                   color=ctx.use(hexc), linewidth=0.3, edgecolor="white", zorder=2)
+            bottom += share[:, j]
+        want_ci = spec.options.get("interval") == "wilson" and not spec.weight
+        for i, lv in enumerate(levels):
+            for j, g in enumerate(ctx.colours):
+                entry = {"x": lv, "group": g, "count": mat[i, j], "total": totals[i], "share": share[i, j]}
+                if want_ci and totals[i] > 0:
+                    lo, hi = stats.wilson_interval(mat[i, j], totals[i])
+                    entry.update(share_ci_low=float(lo), share_ci_high=float(hi))
+                table.append(entry)
+    _category_axis(ax, levels)
+    ax.set_ylim(0, 1)
+    ax.yaxis.set_major_formatter(_percent)
+    return {"shares": table}
+
+
+def _percent_fmt(v, _pos):
+    return f"{v * 100:.0f}%"
+
+
+try:
+    from matplotlib.ticker import FuncFormatter
+    _percent = FuncFormatter(_percent_fmt)
+except ImportError:  # pragma: no cover
+    _percent = None
+
+
+def prepare_tiles(ctx: Context) -> None:
+    spec = ctx.spec
+    ctx.shared["xlevels"] = _levels(ctx, spec.x)
+    ctx.shared["ylevels"] = _levels(ctx, spec.y)
+    top = 0.0
+    for p in ctx.data.panels:
+        if p.n:
+            top = max(top, float(_counts(p.frame, [spec.x, spec.y], spec.weight).max()))
+    import matplotlib.colors as mcolors
+    ctx.norm = mcolors.Normalize(0, max(top, 1))     # one scale for every panel
+    ctx.colour_title = "Sum of " + spec.axis_title(spec.weight) if spec.weight else "Count"
+
+
+def draw_tiles(ax, panel: Panel, ctx: Context) -> dict:
+    spec = ctx.spec
+    xl, yl = ctx.shared["xlevels"], ctx.shared["ylevels"]
+    mat = np.zeros((len(yl), len(xl)))
+    if panel.n:
+        counts = _counts(panel.frame, [spec.x, spec.y], spec.weight)
+        for i, yv in enumerate(yl):
+            for j, xv in enumerate(xl):
+                mat[i, j] = float(counts.get((xv, yv), 0))
+    mesh = ax.pcolormesh(np.arange(len(xl) + 1) - 0.5, np.arange(len(yl) + 1) - 0.5, mat,
+                         cmap=ctx.cmap, norm=ctx.norm, edgecolors="white", linewidth=0.5, zorder=1)
+    ctx.mappables.append(mesh)
+    rgba = ctx.cmap(ctx.norm(mat))
+    from .colour import relative_luminance
+    fontsize = spec.style.tick_pt
+    for i in range(len(yl)):
+        for j in range(len(xl)):
+            light = relative_luminance(rgba[i, j, :3]) > 0.4
+            ax.text(j, i, f"{mat[i, j]:.0f}", ha="center", va="center", fontsize=fontsize,
+                    color=INK if light else "white", zorder=3)
+    ax.set_xticks(range(len(xl)))
+    ax.set_xticklabels([str(v) for v in xl])
+    ax.set_yticks(range(len(yl)))
+    ax.set_yticklabels([str(v) for v in yl])
+    ax.set_xlim(-0.5, len(xl) - 0.5)
+    ax.set_ylim(len(yl) - 0.5, -0.5)   # first level on top, as a table reads
+    ax.grid(False)
+    ax.tick_params(length=0)
+    return {"tiles": [{"x": xv, "y": yv, "count": mat[i, j]} for i, yv in enumerate(yl)
+                      for j, xv in enumerate(xl)]}
+
+
+@dataclass(frozen=True)
+class Drawer:
+    prepare: object
+    draw: object
+    finish: object = None
+    colour_bar: bool = False     # draws with ctx.cmap / ctx.norm
+
+
+DRAWERS = {
+    "scatter": Drawer(prepare_scatter, draw_scatter),
+    "hexbins": Drawer(prepare_hexbins, draw_hexbins, finish_hexbins, colour_bar=True),
+    "box": Drawer(prepare_groups_y, draw_box),
+    "violin": Drawer(prepare_groups_y, draw_violin),
+    "density": Drawer(prepare_density, draw_density),
+    "histogram": Drawer(prepare_histogram, draw_histogram),
+    "count-bars": Drawer(prepare_counts, draw_count_bars),
+    "shares": Drawer(prepare_counts, draw_shares),
+    "tiles": Drawer(prepare_tiles, draw_tiles, colour_bar=True),
+}

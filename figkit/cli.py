@@ -1,0 +1,187 @@
+"""figkit's command line.
+
+    figkit render --id ID      build one figure (what each Snakemake job runs)
+    figkit init DIR            start a manuscript folder that builds with the installed figkit
+    figkit lint                check the sheet, settings and styles without rendering
+    figkit palettes --out DIR  swatch sheets of every built-in palette under simulated vision
+    figkit info FILE           what a figure file says about where it came from
+
+A user's mistake prints one line (``figkit: error: ...``) and exits with status 2.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import logging
+import os
+import shutil
+import sys
+from pathlib import Path
+
+from .errors import FigkitError
+
+STYLES = Path(__file__).with_name("styles")
+
+
+def _cmd_render(args) -> int:
+    from .render import load_project, render
+    project = load_project(args.project)
+    rec = render(project, args.id)
+    out = project.config.results / "figures"
+    print(f"figkit: {rec['id']}: {len(rec['panels'])} panels, "
+          f"{rec['size_mm'][0]:.0f} x {rec['size_mm'][1]:.0f} mm -> {out}/{rec['id']}.*")
+    return 0
+
+
+def _cmd_lint(args) -> int:
+    from .data import read_columns
+    from .render import load_project
+    from .spec import build_spec, check_columns
+    project = load_project(args.project)
+    problems, headers = 0, {}
+    for row in project.rows:
+        try:
+            spec = build_spec(row, project.config)
+            if spec.data_path not in headers:
+                headers[spec.data_path] = read_columns(spec.data_path)
+            check_columns(spec, headers[spec.data_path])
+            if spec.colour:
+                _lint_palette(spec)
+        except FigkitError as exc:
+            problems += 1
+            print(f"figkit: {exc.at(row=row.number, figure=row.id)}", file=sys.stderr)
+    n = len(project.rows)
+    print(f"figkit: lint: {n} figure rows, {problems} with problems")
+    return 2 if problems else 0
+
+
+def _lint_palette(spec) -> None:
+    """A categorical colour field must not have more values than the palette holds."""
+    import pandas as pd
+    from .colour import get_palette
+    from .data import read_dataset
+    col = spec.colour
+    if col in {b.name for b in spec.bandings}:
+        return
+    values = read_dataset(spec.data_path, [col])[col]
+    if pd.api.types.is_float_dtype(values):
+        return
+    palette = get_palette(spec.style.palette)
+    k = values.nunique()
+    if k > len(palette.colours):
+        raise spec.err(f"colour field '{col}' has {k} values but palette '{palette.name}' holds "
+                       f"{len(palette.colours)}; split by this field into panels instead",
+                       field="colour", value=col)
+
+
+def _cmd_palettes(args) -> int:
+    from .colour import swatch_sheet
+    for path in swatch_sheet(Path(args.out)):
+        print(f"figkit: wrote {path}")
+    return 0
+
+
+def _cmd_info(args) -> int:
+    from .provenance import read_file_metadata
+    meta = read_file_metadata(Path(args.file))
+    print(json.dumps(meta, indent=2, ensure_ascii=False))
+    return 0
+
+
+SCAFFOLD_SNAKEFILE = """\
+# Figures of this manuscript.  Build them all:  snakemake --cores 2
+# The rules come from the installed figkit (no code is copied here).
+import figkit.workflow
+
+configfile: "config/config.yaml"
+
+include: figkit.workflow.rules()
+"""
+
+SCAFFOLD_CONFIG = """\
+# Project settings.  Every key is described in figkit's config/README.md.
+sheet: config/figures.tsv
+results: results
+style: house
+formats: [pdf, png, svg]
+datasets:
+  readings: data/readings.csv
+  surveys: data/surveys.csv
+fields:
+  water_temp_c: {label: Water temperature, unit: °C}
+  dissolved_oxygen_mgl: {label: Dissolved oxygen, unit: mg/L}
+  land_use: {label: Land use}
+  season: {label: Season}
+  taxon_group: {label: Taxon group}
+orders:
+  season: [winter, spring, summer, autumn]
+  land_use: [forest, pasture, arable, urban]
+"""
+
+SCAFFOLD_SHEET = [
+    ["id", "dataset", "chart", "x", "y", "colour", "strata", "trend", "size", "caption"],
+    ["oxygen-by-land-use", "readings", "scatter", "water_temp_c", "dissolved_oxygen_mgl", "",
+     "land_use", "line", "full", "Dissolved oxygen falls as water warms, at every land use."],
+    ["taxa-by-season", "surveys", "count-bars", "taxon_group", "", "season", "", "", "full",
+     "Invertebrates counted per taxon group and season."],
+]
+
+
+def _cmd_init(args) -> int:
+    from .demo import write_demo_data
+    target = Path(args.dir)
+    if target.exists() and any(target.iterdir()):
+        raise FigkitError("folder is not empty; figkit init will not overwrite anything",
+                          value=str(target), allowed="a new or empty folder")
+    (target / "config").mkdir(parents=True, exist_ok=True)
+    (target / "Snakefile").write_text(SCAFFOLD_SNAKEFILE, encoding="utf-8")
+    (target / "config" / "config.yaml").write_text(SCAFFOLD_CONFIG, encoding="utf-8")
+    (target / "config" / "figures.tsv").write_text(
+        "".join("\t".join(r) + "\n" for r in SCAFFOLD_SHEET), encoding="utf-8")
+    shutil.copytree(STYLES, target / "styles")
+    written = write_demo_data(target / "data", scale=args.scale)
+    for name in ("sites",):
+        if name in written:
+            written[name].unlink()   # the starter sheet uses readings and surveys only
+    print(f"figkit: started a manuscript folder at {target}\n"
+          f"  edit config/figures.tsv (one row per figure) and config/config.yaml, then run:\n"
+          f"  cd {target} && snakemake --cores 2")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="figkit", description="Journal-ready small-multiple figures "
+                                "from a figure sheet.")
+    from . import __version__
+    p.add_argument("--version", action="version", version=f"figkit {__version__}")
+    sub = p.add_subparsers(dest="command", required=True)
+    r = sub.add_parser("render", help="build one figure of the sheet")
+    r.add_argument("--id", required=True, help="the figure's id (sheet column 'id')")
+    r.add_argument("--project", default=".", help="manuscript folder (default: here)")
+    r.set_defaults(func=_cmd_render)
+    i = sub.add_parser("init", help="start a manuscript folder")
+    i.add_argument("dir")
+    i.add_argument("--scale", type=float, default=0.05,
+                   help="size of the starter data relative to the demo (default 0.05)")
+    i.set_defaults(func=_cmd_init)
+    lt = sub.add_parser("lint", help="check sheet, settings and styles without rendering")
+    lt.add_argument("--project", default=".")
+    lt.set_defaults(func=_cmd_lint)
+    pa = sub.add_parser("palettes", help="write swatch sheets of the built-in palettes")
+    pa.add_argument("--out", required=True, help="folder for palettes.png and palettes.pdf")
+    pa.set_defaults(func=_cmd_palettes)
+    inf = sub.add_parser("info", help="print the provenance a figure file carries")
+    inf.add_argument("file")
+    inf.set_defaults(func=_cmd_info)
+    return p
+
+
+def main(argv=None) -> int:
+    logging.basicConfig(format="figkit: caution: %(message)s", level=logging.WARNING)
+    args = build_parser().parse_args(argv)
+    os.environ.setdefault("MPLBACKEND", "Agg")
+    try:
+        return args.func(args)
+    except FigkitError as exc:
+        print(f"figkit: error: {exc}", file=sys.stderr)
+        return 2

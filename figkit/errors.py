@@ -1,0 +1,45 @@
+"""One error type for everything a user can get wrong.
+
+A user-facing error is one line: where (sheet row, figure id, field), what (the bad
+value) and what would have been accepted.  The command-line entry points print
+``str(err)`` and exit with status 2 instead of showing a traceback.
+"""
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+
+class FigkitError(Exception):
+    """A mistake in the user's sheet, config, styles or data."""
+
+    def __init__(self, message: str, *, row: int | None = None, figure: str | None = None,
+                 field: str | None = None, value: object = None,
+                 allowed: Iterable[object] | str | None = None):
+        self.row, self.figure, self.field, self.value = row, figure, field, value
+        self.allowed = allowed
+        self.message = message
+        super().__init__(self.format())
+
+    def format(self) -> str:
+        where = []
+        if self.row is not None:
+            where.append(f"sheet row {self.row}")
+        if self.figure:
+            where.append(f"figure '{self.figure}'")
+        if self.field:
+            where.append(f"field '{self.field}'")
+        text = (", ".join(where) + ": " if where else "") + self.message
+        if self.value is not None and repr(self.value) not in text:
+            text += f" (got {self.value!r})"
+        if self.allowed is not None:
+            allowed = self.allowed if isinstance(self.allowed, str) else ", ".join(
+                str(a) for a in self.allowed)
+            text += f"; allowed: {allowed}"
+        return " ".join(text.split())  # always one line
+
+    def at(self, *, row: int | None = None, figure: str | None = None,
+           field: str | None = None) -> "FigkitError":
+        """Fill in the location once the caller knows it (keeps what is already set)."""
+        return FigkitError(self.message, row=self.row if self.row is not None else row,
+                           figure=self.figure or figure, field=self.field or field,
+                           value=self.value, allowed=self.allowed)

@@ -1,0 +1,174 @@
+"""Stage 8, provenance: the sidecar JSON, versions, hashes, and atomic writing of every output.
+
+Outputs are written to hidden temporary files beside their targets and renamed into place only
+when all of them are complete, so a failed render never leaves a half-written figure.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import platform
+import tempfile
+from contextlib import contextmanager
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__
+
+SIDECAR_VERSION = 1
+
+
+def versions() -> dict:
+    import matplotlib
+    import pandas
+    import PIL
+    out = {"figkit": __version__, "python": platform.python_version(),
+           "matplotlib": matplotlib.__version__, "numpy": np.__version__, "pandas": pandas.__version__,
+           "pillow": PIL.__version__}
+    try:
+        from importlib.metadata import version
+        out["snakemake"] = version("snakemake")
+    except Exception:  # noqa: BLE001 - snakemake absent in a notebook-only install
+        out["snakemake"] = None
+    return out
+
+
+def font_file(family: str) -> str:
+    """The font file matplotlib resolves for ``family`` (its name only: no absolute paths)."""
+    from matplotlib import font_manager
+    path = font_manager.findfont(font_manager.FontProperties(family=family), fallback_to_default=True)
+    return Path(path).name
+
+
+def sha256_text(text: str) -> str:
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def clean(value):
+    """JSON-ready copy: numpy scalars to Python, NaN/inf to None, floats rounded to 10 significant
+    digits so the sidecar is stable across platforms' last-bit differences."""
+    if isinstance(value, dict):
+        return {str(k): clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [clean(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return [clean(v) for v in value.tolist()]
+    if isinstance(value, (np.integer,)):
+        return int(value)
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (float, np.floating)):
+        f = float(value)
+        if not math.isfinite(f):
+            return None
+        return float(f"{f:.10g}")
+    if isinstance(value, Path):
+        return value.as_posix()
+    return value
+
+
+def dumps(record: dict) -> str:
+    return json.dumps(clean(record), indent=2, ensure_ascii=False, sort_keys=False) + "\n"
+
+
+@contextmanager
+def atomic_outputs(targets: list[Path]):
+    """Yield temporary paths for ``targets``; rename them into place only if the block succeeds."""
+    temps = []
+    try:
+        for t in targets:
+            t.parent.mkdir(parents=True, exist_ok=True)
+            fd, tmp = tempfile.mkstemp(prefix=f".{t.name}.", suffix=".part", dir=t.parent)
+            os.close(fd)
+            temps.append(Path(tmp))
+        yield temps
+        for tmp, t in zip(temps, targets):
+            os.replace(tmp, t)
+        temps = []
+    finally:
+        for tmp in temps:
+            try:
+                tmp.unlink()
+            except FileNotFoundError:
+                pass
+
+
+def file_metadata(record: dict) -> dict:
+    """The essentials embedded in each figure file, so a file found alone still says where it came
+    from: id, inputs with hashes, versions, row hash and the rebuild command."""
+    keep = {k: record.get(k) for k in ("id", "inputs", "row_sha256", "rebuild", "versions")}
+    return clean(keep)
+
+
+def _pdf_literal(data: bytes, start: int) -> str:
+    """Decode a PDF literal string starting just after its '(' (ISO 32000-1, 7.3.4.2)."""
+    out, depth, i = bytearray(), 1, start
+    escapes = {ord("n"): b"\n", ord("r"): b"\r", ord("t"): b"\t", ord("b"): b"\b", ord("f"): b"\f"}
+    while i < len(data):
+        c = data[i]
+        if c == ord("\\"):
+            nxt = data[i + 1]
+            if nxt in escapes:
+                out += escapes[nxt]
+                i += 2
+            elif ord("0") <= nxt <= ord("7"):
+                j = i + 1
+                while j < i + 4 and ord("0") <= data[j] <= ord("7"):
+                    j += 1
+                out.append(int(data[i + 1:j], 8))
+                i = j
+            else:
+                out.append(nxt)
+                i += 2
+            continue
+        if c == ord("("):
+            depth += 1
+        elif c == ord(")"):
+            depth -= 1
+            if depth == 0:
+                break
+        out.append(c)
+        i += 1
+    if out[:2] == b"\xfe\xff":
+        return out[2:].decode("utf-16-be")
+    return out.decode("latin-1")
+
+
+def read_file_metadata(path: Path) -> dict:
+    """The provenance embedded in a figure file (PNG text chunk, PDF document information, SVG
+    metadata, TIFF description), as a dict.  Works on a file copied away from its project."""
+    from .errors import FigkitError
+    path = Path(path)
+    if not path.is_file():
+        raise FigkitError("no such file", value=str(path))
+    suffix = path.suffix.lower()
+    text = None
+    if suffix in (".png", ".tif", ".tiff"):
+        from PIL import Image
+        with Image.open(path) as im:
+            if suffix == ".png":
+                text = im.text.get("figkit")
+            else:
+                text = im.tag_v2.get(270)
+    elif suffix == ".pdf":
+        data = path.read_bytes()
+        at = data.rfind(b"/Subject (")
+        if at >= 0:
+            text = _pdf_literal(data, at + len(b"/Subject ("))
+    elif suffix == ".svg":
+        import xml.etree.ElementTree as ET
+        ns = {"dc": "http://purl.org/dc/elements/1.1/"}
+        node = ET.parse(path).getroot().find(".//dc:description", ns)
+        text = node.text if node is not None else None
+    else:
+        raise FigkitError("not a figure file figkit writes", value=path.name,
+                          allowed=[".pdf", ".png", ".svg", ".tiff"])
+    if not text:
+        raise FigkitError("this file carries no figkit provenance", value=path.name)
+    try:
+        return json.loads(text)
+    except json.JSONDecodeError:
+        raise FigkitError("this file's figkit provenance is damaged", value=path.name) from None

@@ -1,0 +1,237 @@
+"""The pipeline for one figure: sheet row -> spec -> data -> statistics -> drawing -> checks ->
+files + sidecar.  Also the notebook API: :func:`figure` returns a matplotlib Figure for one row.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import json
+import logging
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from . import provenance as P
+from . import stats
+from .checks import enforce_minimums
+from .data import FigureData, load_figure_data
+from .errors import FigkitError
+from .sheet import Config, SheetRow, check_row, find_row, load_config, read_sheet
+from .spec import FigureSpec, build_spec
+
+log = logging.getLogger("figkit")
+
+STATS_COLUMNS = ["panel", "group", "n", "n_dropped", "x_mean", "y_mean", "slope", "slope_ci_low",
+                 "slope_ci_high", "intercept", "r"]
+
+
+@dataclass
+class Project:
+    config: Config
+    rows: list[SheetRow]
+
+    @property
+    def root(self) -> Path:
+        return self.config.root
+
+    def spec(self, figure_id: str) -> FigureSpec:
+        return build_spec(find_row(self.rows, figure_id), self.config)
+
+
+def load_project(root: Path | str = ".") -> Project:
+    config = load_config(root)
+    return Project(config, read_sheet(config.sheet_path))
+
+
+def spec_from_cells(cells: dict, project: Project | str | Path = ".") -> FigureSpec:
+    """A spec from a dict of sheet cells (as a notebook would write a row), in a project."""
+    proj = project if isinstance(project, Project) else load_project(project)
+    clean = {k: str(v) for k, v in cells.items() if v not in (None, "")}
+    return build_spec(check_row(0, clean), proj.config)
+
+
+def _stat_line(panel, spec: FigureSpec, x, y) -> dict:
+    rec = {"n": len(x), "n_dropped": panel.n_dropped,
+           "x_mean": float(np.mean(x)) if len(x) else None,
+           "y_mean": float(np.mean(y)) if y is not None and len(y) else None,
+           "slope": None, "slope_ci_low": None, "slope_ci_high": None, "intercept": None, "r": None}
+    if y is not None and len(x) >= 3 and np.ptp(x) > 0:
+        fit = stats.fit_line(x, y)
+        rec.update(slope=fit.slope, slope_ci_low=fit.slope_ci_low, slope_ci_high=fit.slope_ci_high,
+                   intercept=fit.intercept, r=fit.r)
+    return rec
+
+
+def panel_statistics(spec: FigureSpec, data: FigureData) -> list[dict]:
+    """One line per panel (and per colour group where colour splits the data)."""
+    lines = []
+    numeric_x = spec.chart.x == "numeric"
+    numeric_y = spec.chart.y == "numeric"
+    for p in data.panels:
+        x = p.frame[spec.x].to_numpy(dtype=float) if numeric_x else np.array([])
+        y = p.frame[spec.y].to_numpy(dtype=float) if numeric_y else None
+        if not numeric_x and numeric_y:
+            x, y = y, None   # groups charts: the mean of the measured field goes in y_mean
+            line = _stat_line(p, spec, x, None)
+            line["y_mean"], line["x_mean"] = line["x_mean"], None
+        else:
+            line = _stat_line(p, spec, x, y)
+        line = {"panel": p.label, "group": None, **line}
+        lines.append(line)
+        if spec.colour and spec.colour in data.levels and (numeric_x or numeric_y):
+            for level, part in p.frame.groupby(spec.colour, sort=False, observed=True):
+                gx = part[spec.x].to_numpy(dtype=float) if numeric_x else part[spec.y].to_numpy(dtype=float)
+                gy = part[spec.y].to_numpy(dtype=float) if numeric_x and numeric_y else None
+                g = _stat_line(p, spec, gx, gy)
+                g["n_dropped"] = None
+                if not numeric_x:
+                    g["y_mean"], g["x_mean"] = g["x_mean"], None
+                lines.append({"panel": p.label, "group": P.clean(level), **g})
+    return lines
+
+
+def strata_comparison(spec: FigureSpec, data: FigureData) -> dict | None:
+    """Interaction F-test of equal slopes across panels (see stats.strata_slope_test)."""
+    if spec.trend != "line" or not spec.strata or len(data.panels) < 2:
+        return None
+    xs, ys, labels = [], [], []
+    for p in data.panels:
+        xs.append(p.frame[spec.x].to_numpy(dtype=float))
+        ys.append(p.frame[spec.y].to_numpy(dtype=float))
+        labels.append(np.full(p.n, p.label, dtype=object))
+    test = stats.strata_slope_test(np.concatenate(xs), np.concatenate(ys), np.concatenate(labels))
+    if test is None:
+        return None
+    return {"F": test.F, "df_num": test.df_num, "df_den": test.df_den, "p": test.p,
+            "pooled_slope": test.pooled_slope, "crude_slope": test.crude_slope,
+            "excluded": list(test.excluded)}
+
+
+def figure(row_or_id, project: Project | str | Path = "."):
+    """Notebook API: the matplotlib Figure of one sheet row (by id, or a dict of cells)."""
+    import matplotlib as mpl
+    proj = project if isinstance(project, Project) else load_project(project)
+    spec = proj.spec(row_or_id) if isinstance(row_or_id, str) else spec_from_cells(row_or_id, proj)
+    data = load_figure_data(spec)
+    from .draw import build_figure
+    with mpl.rc_context(spec.style.rc):
+        fig, _ = build_figure(spec, data)
+    return fig
+
+
+def rebuild_command(spec: FigureSpec, results: str) -> str:
+    return f"snakemake --cores 1 --forcerun {results}/figures/{spec.id}.json"
+
+
+def render(project: Project, figure_id: str) -> dict:
+    """Build one figure's files and sidecar under ``results/figures``; return the sidecar."""
+    import matplotlib as mpl
+    mpl.use("Agg", force=True)
+    from .draw import build_figure
+
+    spec = project.spec(figure_id)
+    data = load_figure_data(spec)
+    out_dir = project.config.results / "figures"
+    results_rel = project.config["results"]
+    row = find_row(project.rows, figure_id)
+    row_json = json.dumps(row.cells, sort_keys=True, ensure_ascii=False)
+
+    with mpl.rc_context(spec.style.rc):
+        fig, drawn = build_figure(spec, data)
+        sizes = enforce_minimums(fig, spec.style.min_text_pt, spec.style.min_line_pt,
+                                 figure=spec.id, row=spec.row)
+        stat_lines = panel_statistics(spec, data)
+        strata = strata_comparison(spec, data)
+        panel_stats = {}
+        for line in stat_lines:
+            if line["group"] is None:
+                panel_stats[line["panel"]] = {k: line[k] for k in STATS_COLUMNS[2:]}
+
+        panels = []
+        for p, rec in zip(data.panels, drawn["panel_records"]):
+            entry = {"label": p.label, "keys": p.keys, "n": p.n, "n_dropped": p.n_dropped}
+            if p.cell is not None:
+                entry["cell"] = list(p.cell)
+            entry["stats"] = panel_stats.get(p.label)
+            entry.update(rec)
+            panels.append(entry)
+
+        from .colour import separability
+        sep = separability(drawn["colours"])
+        cautions = list(drawn["cautions"])
+        if spec.trend == "loess":
+            cautions.append("LOESS shows a local average; its shape depends on the span "
+                            f"({spec.options.get('span', 0.75)}) and says nothing about uncertainty")
+        record = {
+            "id": spec.id,
+            "size_mm": drawn["size_mm"],
+            "dpi": spec.style.dpi,
+            "files": {fmt: f"{spec.id}.{fmt}" for fmt in spec.formats},
+            "inputs": data.inputs,
+            "chart": spec.chart.name,
+            "x": spec.x, "y": spec.y, "colour": spec.colour, "weight": spec.weight,
+            "strata": list(spec.strata),
+            "filter": spec.filter.text if spec.filter is not None else None,
+            "derived": [b.as_record() for b in spec.bandings] or None,
+            "layout": drawn["layout"],
+            "panels": panels,
+            "rows_read": data.n_read, "rows_kept": data.n_kept, "rows_without_stratum": data.n_unassigned,
+            "strata_test": strata,
+            "colours": {"used": drawn["colours"], "min_delta_e": sep.min_delta_e},
+            "min_font_pt": sizes.min_font_pt,
+            "min_line_pt": sizes.min_line_pt,
+            "cautions": cautions,
+            "style": {"name": spec.style.name, "files": spec.style.digest()},
+            "row_sha256": P.sha256_text(row_json),
+            "rebuild": rebuild_command(spec, results_rel),
+            "versions": {**P.versions(), "font": P.font_file(spec.style.rc.get("font.family", ["DejaVu Sans"])[0]
+                                                            if isinstance(spec.style.rc.get("font.family"), list)
+                                                            else spec.style.rc.get("font.family", "DejaVu Sans"))},
+        }
+        if "bin_edges" in drawn:
+            record["bin_edges"] = drawn["bin_edges"]
+        for msg in cautions:
+            log.warning("%s: %s", spec.id, msg)
+
+        meta = json.dumps(P.file_metadata(record), sort_keys=True, separators=(",", ":"))
+        targets = [out_dir / f"{spec.id}.{fmt}" for fmt in spec.formats]
+        targets += [out_dir / f"{spec.id}.stats.csv", out_dir / f"{spec.id}.json"]
+        with P.atomic_outputs(targets) as temps:
+            for fmt, tmp in zip(spec.formats, temps):
+                _save(fig, tmp, fmt, spec, meta)
+            temps[-2].write_text(_stats_csv(stat_lines), encoding="utf-8")
+            temps[-1].write_text(P.dumps(record), encoding="utf-8")
+    return P.clean(record)
+
+
+def _save(fig, path: Path, fmt: str, spec: FigureSpec, meta: str) -> None:
+    title = f"figkit figure {spec.id}"
+    if fmt == "pdf":
+        fig.savefig(path, format="pdf", dpi=spec.style.dpi,
+                    metadata={"Title": title, "Subject": meta, "Creator": "figkit",
+                              "CreationDate": None, "ModDate": None})
+    elif fmt == "svg":
+        fig.savefig(path, format="svg", dpi=spec.style.dpi,
+                    metadata={"Title": title, "Description": meta, "Creator": "figkit", "Date": None})
+    elif fmt == "png":
+        fig.savefig(path, format="png", dpi=spec.style.dpi,
+                    metadata={"Title": title, "Software": "figkit", "figkit": meta})
+    elif fmt == "tiff":
+        fig.savefig(path, format="tiff", dpi=spec.style.dpi,
+                    pil_kwargs={"compression": "tiff_lzw", "description": meta})
+    else:  # pragma: no cover - the schema allows only the four above
+        raise FigkitError("unknown output format", value=fmt, allowed=["pdf", "png", "svg", "tiff"])
+
+
+def _stats_csv(lines: list[dict]) -> str:
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(STATS_COLUMNS)
+    for line in lines:
+        cells = []
+        for col in STATS_COLUMNS:
+            v = P.clean(line.get(col))
+            cells.append("" if v is None else v)
+        w.writerow(cells)
+    return buf.getvalue()

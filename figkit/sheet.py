@@ -1,0 +1,171 @@
+"""Stage 1, the sheet: read config/config.yaml and config/figures.tsv, check them against the
+JSON Schemas in figkit/schemas (also reachable as config/schemas), and hand on plain rows.
+
+Rows are numbered as a spreadsheet shows them: the header is row 1, the first figure row 2.
+Structural checks only; what needs the data (does the column exist?) happens in :mod:`figkit.spec`.
+"""
+from __future__ import annotations
+
+import copy
+import csv
+import json
+from dataclasses import dataclass, field
+from functools import lru_cache
+from pathlib import Path
+
+import jsonschema
+import yaml
+
+from .errors import FigkitError
+
+SCHEMA_DIR = Path(__file__).with_name("schemas")
+CONFIG_FILE = Path("config") / "config.yaml"
+
+
+@lru_cache(maxsize=None)
+def schema(name: str) -> dict:
+    """The JSON Schema ``name`` ("config" or "sheet") as a dict."""
+    return json.loads((SCHEMA_DIR / f"{name}.schema.json").read_text(encoding="utf-8"))
+
+
+def schema_path(name: str) -> str:
+    return str(SCHEMA_DIR / f"{name}.schema.json")
+
+
+def _schema_message(err: jsonschema.ValidationError, sch: dict) -> tuple[str, str | None, object, object]:
+    """Turn a jsonschema error into (message, field, value, allowed) for a one-line FigkitError."""
+    path = [str(p) for p in err.absolute_path]
+    fld = ".".join(path) or None
+    if err.validator == "required":
+        missing = err.message.split("'")[1] if "'" in err.message else err.message
+        return "required field is missing", missing, None, None
+    if err.validator == "additionalProperties":
+        known = sorted(err.schema.get("properties", {})) or None
+        extra = sorted(set(err.instance) - set(err.schema.get("properties", {})))
+        return f"unknown field {', '.join(map(repr, extra))}", fld, None, known
+    if err.validator == "enum":
+        return "value not allowed", fld, err.instance, err.validator_value
+    if err.validator == "pattern":
+        desc = err.schema.get("description", f"text matching {err.validator_value}")
+        return "badly formed value", fld, err.instance, desc
+    return err.message, fld, err.instance, None
+
+
+def _defaults(sch: dict) -> dict:
+    return {k: copy.deepcopy(v["default"]) for k, v in sch.get("properties", {}).items() if "default" in v}
+
+
+@dataclass
+class Config:
+    """Project-wide settings, with schema defaults filled in."""
+    root: Path
+    data: dict
+
+    def __getitem__(self, key):
+        return self.data[key]
+
+    def get(self, key, default=None):
+        return self.data.get(key, default)
+
+    @property
+    def results(self) -> Path:
+        return self.root / self.data["results"]
+
+    @property
+    def sheet_path(self) -> Path:
+        return self.root / self.data["sheet"]
+
+
+def validate_config(data: dict, root: Path | str = ".") -> Config:
+    """Validate an already-parsed config mapping and fill its defaults."""
+    if not isinstance(data, dict):
+        raise FigkitError("config.yaml must be a mapping of settings", value=type(data).__name__)
+    sch = schema("config")
+    errors = sorted(jsonschema.Draft202012Validator(sch).iter_errors(data), key=lambda e: list(e.path))
+    if errors:
+        msg, fld, value, allowed = _schema_message(errors[0], sch)
+        raise FigkitError(f"config.yaml: {msg}", field=fld, value=value, allowed=allowed)
+    full = _defaults(sch)
+    full.update(copy.deepcopy(data))
+    return Config(Path(root), full)
+
+
+def load_config(root: Path | str = ".") -> Config:
+    root = Path(root)
+    path = root / CONFIG_FILE
+    if not path.is_file():
+        raise FigkitError(f"no project settings at {path}; run 'figkit init DIR' to start a project")
+    try:
+        data = yaml.safe_load(path.read_text(encoding="utf-8")) or {}
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f" at line {mark.line + 1}" if mark else ""
+        raise FigkitError(f"{path} is not valid YAML{where}") from None
+    return validate_config(data, root)
+
+
+@dataclass
+class SheetRow:
+    """One figure row: its spreadsheet row number and its non-empty cells."""
+    number: int
+    cells: dict
+    error: FigkitError | None = field(default=None)
+
+    @property
+    def id(self) -> str:
+        return self.cells.get("id", f"row{self.number}")
+
+
+def check_row(number: int, cells: dict) -> SheetRow:
+    """Validate one row against the sheet schema; defaults are filled in."""
+    sch = schema("sheet")
+    errors = sorted(jsonschema.Draft202012Validator(sch).iter_errors(cells), key=lambda e: list(e.path))
+    full = _defaults(sch)
+    full.update(cells)
+    row = SheetRow(number, full)
+    if errors:
+        msg, fld, value, allowed = _schema_message(errors[0], sch)
+        row.error = FigkitError(msg, row=number, figure=cells.get("id"), field=fld, value=value,
+                                allowed=allowed)
+    return row
+
+
+def read_sheet(path: Path | str) -> list[SheetRow]:
+    """Read the figure sheet (tab-separated, header first).  Empty cells are left out; lines that
+    are blank or start with '#' are comments.  Returns every row, each with its own error (if any),
+    so that one bad row does not stop the others from building."""
+    path = Path(path)
+    if not path.is_file():
+        raise FigkitError(f"figure sheet not found: {path}")
+    with path.open(newline="", encoding="utf-8") as fh:
+        lines = list(csv.reader(fh, delimiter="\t"))
+    if not lines:
+        raise FigkitError(f"figure sheet {path} is empty; it needs a header row")
+    header = [h.strip() for h in lines[0]]
+    if len(set(header)) != len(header):
+        dup = sorted({h for h in header if header.count(h) > 1})
+        raise FigkitError(f"figure sheet {path}: repeated column {', '.join(dup)}")
+    rows, seen = [], {}
+    for number, values in enumerate(lines[1:], start=2):
+        if not any(v.strip() for v in values) or values[0].lstrip().startswith("#"):
+            continue
+        if len(values) > len(header):
+            rows.append(SheetRow(number, {}, FigkitError(
+                f"{len(values)} cells but the header has {len(header)} columns", row=number)))
+            continue
+        cells = {h: v.strip() for h, v in zip(header, values) if v.strip()}
+        row = check_row(number, cells)
+        if row.error is None and row.id in seen:
+            row.error = FigkitError(f"id already used in sheet row {seen[row.id]}", row=number,
+                                    figure=row.id, field="id", value=row.id)
+        seen.setdefault(row.id, number)
+        rows.append(row)
+    return rows
+
+
+def find_row(rows: list[SheetRow], figure_id: str) -> SheetRow:
+    for row in rows:
+        if row.id == figure_id:
+            return row
+    raise FigkitError("no such figure in the sheet", figure=figure_id,
+                      allowed=[r.id for r in rows] or "no rows yet")

@@ -1,0 +1,111 @@
+"""House styles: a matplotlib style sheet (configuration as data) plus a small YAML of figkit
+settings — size presets in mm, text sizes in pt, minimum sizes, palette, letters, grid, checks."""
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass
+from pathlib import Path
+
+import yaml
+
+from .errors import FigkitError
+
+MM_PER_INCH = 25.4
+PT_PER_INCH = 72.0
+
+
+def mm_to_in(mm: float) -> float:
+    return mm / MM_PER_INCH
+
+
+def pt_to_mm(pt: float) -> float:
+    return pt * MM_PER_INCH / PT_PER_INCH
+
+
+@dataclass(frozen=True)
+class HouseStyle:
+    name: str
+    files: tuple[Path, ...]        # the YAML and the .mplstyle: inputs of every figure that uses them
+    rc: dict                       # rcParams from the style sheet
+    sizes: dict                    # preset name -> width in mm
+    max_height_mm: float
+    panel_min_mm: float
+    panel_aspect: float
+    gap_mm: float
+    base_pt: float
+    tick_pt: float
+    title_pt: float
+    letter_pt: float
+    min_text_pt: float
+    min_line_pt: float
+    palette: str
+    sequential: str
+    letters: str
+    grid: str
+    strict: bool
+    dpi: int
+
+    def width_mm(self, preset: str, *, row=None, figure=None) -> float:
+        if preset not in self.sizes:
+            raise FigkitError("unknown size preset", row=row, figure=figure, field="size", value=preset,
+                              allowed=sorted(self.sizes))
+        return float(self.sizes[preset])
+
+    def digest(self) -> dict:
+        return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in self.files}
+
+
+_REQUIRED = {"sheet", "sizes", "max_height_mm", "panel", "text", "minimums", "palette", "sequential",
+             "letters", "grid", "strict", "dpi"}
+
+
+def _read_rc(path: Path) -> dict:
+    import matplotlib as mpl
+    try:
+        return dict(mpl.rc_params_from_file(str(path), use_default_template=False))
+    except (OSError, ValueError) as exc:  # pragma: no cover - message only
+        raise FigkitError(f"style sheet {path} cannot be read: {exc}") from None
+
+
+def load_style(name: str, styles_dir: Path | str, extra_sizes: dict | None = None,
+               dpi: int | None = None, *, row=None, figure=None) -> HouseStyle:
+    """Load ``styles_dir/<name>.yaml`` and the style sheet it names."""
+    styles_dir = Path(styles_dir)
+    path = styles_dir / f"{name}.yaml"
+    if not path.is_file():
+        known = sorted(p.stem for p in styles_dir.glob("*.yaml")) or ["none found in " + str(styles_dir)]
+        raise FigkitError("unknown house style", row=row, figure=figure, field="style", value=name,
+                          allowed=known)
+    try:
+        data = yaml.safe_load(path.read_text(encoding="utf-8")) or {}
+    except yaml.YAMLError:
+        raise FigkitError(f"house style {path} is not valid YAML") from None
+    missing = sorted(_REQUIRED - set(data))
+    if missing:
+        raise FigkitError(f"house style {path} lacks settings: {', '.join(missing)}")
+    sheet = styles_dir / data["sheet"]
+    if not sheet.is_file():
+        raise FigkitError(f"house style {path} names a style sheet that does not exist", value=str(sheet))
+    sizes = dict(data["sizes"])
+    sizes.update(extra_sizes or {})
+    mins, text, panel = data["minimums"], data["text"], data["panel"]
+    if float(mins["text_pt"]) < 5:
+        raise FigkitError(f"house style {name}: minimums.text_pt below the 5 pt absolute floor",
+                          value=mins["text_pt"])
+    for key in ("base_pt", "tick_pt", "title_pt", "letter_pt"):
+        if float(text[key]) < float(mins["text_pt"]):
+            raise FigkitError(f"house style {name}: text.{key} is below minimums.text_pt "
+                              f"({text[key]} < {mins['text_pt']} pt)")
+    if data["letters"] not in ("lower", "upper", "none"):
+        raise FigkitError(f"house style {name}: letters", value=data["letters"], allowed=["lower", "upper", "none"])
+    if data["grid"] not in ("none", "x", "y", "both"):
+        raise FigkitError(f"house style {name}: grid", value=data["grid"], allowed=["none", "x", "y", "both"])
+    return HouseStyle(
+        name=name, files=(path, sheet), rc=_read_rc(sheet), sizes=sizes,
+        max_height_mm=float(data["max_height_mm"]), panel_min_mm=float(panel["min_mm"]),
+        panel_aspect=float(panel["aspect"]), gap_mm=float(panel["gap_mm"]),
+        base_pt=float(text["base_pt"]), tick_pt=float(text["tick_pt"]), title_pt=float(text["title_pt"]),
+        letter_pt=float(text["letter_pt"]), min_text_pt=float(mins["text_pt"]),
+        min_line_pt=float(mins["line_pt"]), palette=str(data["palette"]),
+        sequential=str(data["sequential"]), letters=data["letters"], grid=data["grid"],
+        strict=bool(data["strict"]), dpi=int(dpi or data["dpi"]))
