@@ -3,5 +3,10 @@ import figkit.workflow
 
 configfile: "config/config.yaml"
 
-include: figkit.workflow.demo_rules()
-include: figkit.workflow.rules()
+include: figkit.workflow.rules()       # one job per sheet row, and the HTML report
+include: figkit.workflow.demo_rules()  # generates data/ (an invented river-monitoring network)
+
+
+rule all:  # the default target (Snakemake takes it from this file, not from an include)
+    input:
+        rules.all_figures.input,

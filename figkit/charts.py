@@ -143,7 +143,7 @@ def _discrete_gap(v: np.ndarray) -> float | None:
 
 # Opacity reached by the densest cell when transparency is chosen from the measured density.
 DENSEST_OPACITY = 0.9
-MIN_ALPHA = 0.04         # below this a lone point vanishes: switch to hexagonal bins
+MIN_ALPHA = 0.1          # below this a lone point vanishes: switch to hexagonal bins
 
 
 def choose_drawing(max_per_cell: int, forced: str = "auto") -> tuple[str, float]:
@@ -238,6 +238,10 @@ def draw_scatter(ax, panel: Panel, ctx: Context) -> dict:
             m = slice(None) if codes is None else (codes == level)
             ax.scatter(px[m], py[m], color=ctx.use(hexc or NEUTRAL), s=size, linewidths=0,
                        alpha=alpha, rasterized=len(part) > 2000, zorder=2)
+    for axis in sh["jitter"]:
+        values = np.unique(panel.frame[spec.x if axis == "x" else spec.y].to_numpy(dtype=float))
+        if len(values) <= 12:   # label the distinct values themselves, not fractions between them
+            (ax.set_xticks if axis == "x" else ax.set_yticks)(values, [f"{v:g}" for v in values])
     if sh["jitter"]:
         rec["jitter"] = {axis: float(w) for axis, w in sh["jitter"].items()}
         rec["jitter_seed"] = JITTER_SEED
@@ -397,7 +401,6 @@ def draw_density(ax, panel: Panel, ctx: Context) -> dict:
         ax.fill_between(inside, 0, dens, color=colour, alpha=0.25, linewidth=0, zorder=2)
         ax.plot(inside, dens, color=colour, linewidth=0.9, zorder=3)
         groups.append({"group": level, "n": len(v), "bandwidth": bw})
-    ax.set_ylim(bottom=0)
     return {"groups": groups}
 
 
@@ -420,7 +423,6 @@ def draw_histogram(ax, panel: Panel, ctx: Context) -> dict:
     colour = ctx.use(NEUTRAL)
     ax.stairs(counts, edges, fill=True, color=colour, alpha=0.85, zorder=2)
     ax.stairs(counts, edges, color="white", linewidth=0.3, zorder=3)
-    ax.set_ylim(bottom=0)
     return {"bins": len(edges) - 1, "bin_rule": str(ctx.shared["bin_rule"]),
             "bin_width": float(edges[1] - edges[0])}
 
@@ -457,7 +459,6 @@ def draw_count_bars(ax, panel: Panel, ctx: Context) -> dict:
             for lv, h in zip(levels, heights):
                 table.append({"x": lv, "group": level, "count": h})
     _category_axis(ax, levels)
-    ax.set_ylim(bottom=0)   # bars always start at zero: a cut axis exaggerates differences
     return {"counts": table}
 
 
@@ -551,6 +552,7 @@ class Drawer:
     draw: object
     finish: object = None
     colour_bar: bool = False     # draws with ctx.cmap / ctx.norm
+    zero_y: bool = False         # y axis starts at 0 (bars, counts, densities): never truncated
 
 
 DRAWERS = {
@@ -558,9 +560,9 @@ DRAWERS = {
     "hexbins": Drawer(prepare_hexbins, draw_hexbins, finish_hexbins, colour_bar=True),
     "box": Drawer(prepare_groups_y, draw_box),
     "violin": Drawer(prepare_groups_y, draw_violin),
-    "density": Drawer(prepare_density, draw_density),
-    "histogram": Drawer(prepare_histogram, draw_histogram),
-    "count-bars": Drawer(prepare_counts, draw_count_bars),
+    "density": Drawer(prepare_density, draw_density, zero_y=True),
+    "histogram": Drawer(prepare_histogram, draw_histogram, zero_y=True),
+    "count-bars": Drawer(prepare_counts, draw_count_bars, zero_y=True),
     "shares": Drawer(prepare_counts, draw_shares),
     "tiles": Drawer(prepare_tiles, draw_tiles, colour_bar=True),
 }

@@ -96,6 +96,11 @@ import figkit.workflow
 configfile: "config/config.yaml"
 
 include: figkit.workflow.rules()
+
+
+rule all:  # the default target: every figure of the sheet
+    input:
+        rules.all_figures.input,
 """
 
 SCAFFOLD_CONFIG = """\

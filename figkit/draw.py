@@ -10,6 +10,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from dataclasses import replace
+
 from . import layout as L
 from .charts import DRAWERS, NEUTRAL, Context
 from .colour import assign_categories
@@ -19,7 +21,6 @@ from .spec import FigureSpec
 from .style import mm_to_in, pt_to_mm
 
 TICK_MM = pt_to_mm(2.0 + 1.5)      # tick length + pad (pt in the style sheets)
-LEGEND_GAP = 2.0                   # mm between the grid and a legend beside it
 HEADER_RULE = "#9AA1A9"
 
 
@@ -54,14 +55,31 @@ def _colour_setup(spec: FigureSpec, data: FigureData, ctx: Context) -> str | Non
 
 
 def _legend_width(kind: str | None, ctx: Context, spec: FigureSpec) -> float:
+    """Width (mm) to reserve for the key beside the grid.  A categorical legend is measured by
+    drawing it once on a scratch figure, so long labels are never clipped."""
     pt = spec.style.tick_pt
     if kind == "categories":
-        longest = max([_text_width_mm(str(k), pt) for k in ctx.colours] +
-                      [_text_width_mm(ctx.colour_title, pt)])
-        return longest + 5.0
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.figure import Figure
+        scratch = Figure(figsize=(4, 4), dpi=72)
+        FigureCanvasAgg(scratch)
+        leg = scratch.legend(handles=_legend_handles(ctx, spec), title=ctx.colour_title,
+                             fontsize=pt, title_fontsize=pt, borderpad=0, borderaxespad=0)
+        width = leg.get_window_extent(scratch.canvas.get_renderer()).width / 72 * 25.4
+        return width + 1.0
     if kind == "bar":
         return 3.0 + 1.0 + _text_width_mm("00000", pt) + 3.5
     return 0.0
+
+
+def _legend_handles(ctx: Context, spec: FigureSpec) -> list:
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+    if spec.chart.name == "scatter":
+        return [Line2D([], [], linestyle="none", marker="o", markersize=3.5, markerfacecolor=hexc,
+                       markeredgewidth=0, label=str(level)) for level, hexc in ctx.colours.items()]
+    return [Patch(facecolor=hexc, edgecolor="none", label=str(level))
+            for level, hexc in ctx.colours.items()]
 
 
 def _margins(spec: FigureSpec, *, titles: bool, ytick_w: float, xtick_h: float,
@@ -100,6 +118,23 @@ def _measure(fig, axes, which: str, visible) -> float:
     return best
 
 
+def _right_overhang(fig, axes, visible) -> float:
+    """How far (mm) x tick labels reach past the right edge of their panel column's right end."""
+    renderer = fig.canvas.get_renderer()
+    width = fig.bbox.width
+    worst = 0.0
+    for ax, show in zip(axes, visible):
+        if not show:
+            continue
+        ax.xaxis.get_tightbbox(renderer)
+        for t in ax.get_xticklabels():
+            if t.get_visible() and t.get_text():
+                bb = t.get_window_extent(renderer)
+                panel_right = ax.get_position().x1 * width
+                worst = max(worst, (bb.x1 - panel_right) / fig.dpi * 25.4)
+    return worst
+
+
 def _rotate_if_crowded(fig, axes, visible) -> bool:
     """Tilt categorical x labels that would touch their neighbours (measured, not guessed)."""
     renderer = fig.canvas.get_renderer()
@@ -130,6 +165,19 @@ def _panel_title(panel, spec: FigureSpec) -> str:
     if isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, bool):
         return f"{label} {value:g}" if isinstance(value, float) else f"{label} {value}"
     return str(value)
+
+
+def _wrap(text: str, width_mm: float, pt: float) -> list[str]:
+    """Greedy word wrap to an estimated width (planning estimate, see _text_width_mm)."""
+    lines, line = [], ""
+    for word in str(text).split():
+        trial = f"{line} {word}".strip()
+        if line and _text_width_mm(trial, pt) > width_mm:
+            lines.append(line)
+            line = word
+        else:
+            line = trial
+    return lines + [line] if line else lines
 
 
 def _shorten(fig, text_artist, max_mm: float) -> None:
@@ -226,6 +274,14 @@ def build_figure(spec: FigureSpec, data: FigureData):
     if ctx.shared.get("mode") == "bins" and spec.chart.name == "scatter":
         from .charts import finish_hexbins
         finish_hexbins(ctx)
+    if drawer.zero_y:
+        tops = []
+        for ax in axes:
+            ax.relim()
+            ax.autoscale_view()
+            tops.append(ax.get_ylim()[1])
+        for ax, top in zip(axes, tops):
+            ax.set_ylim(0, max(tops) if share_y else top)
     for ax in axes:
         if "xlim" in ctx.shared and spec.chart.x == "numeric" and share_x:
             ax.set_xlim(*ctx.shared["xlim"])
@@ -247,12 +303,21 @@ def build_figure(spec: FigureSpec, data: FigureData):
     for ax, sx, sy in zip(axes, show_x, show_y):
         ax.tick_params(labelbottom=sx, labelleft=sy)
 
-    # Measure what was drawn and place everything again (twice: tick choice depends on size).
-    for _ in range(2):
-        crowded = _rotate_if_crowded(fig, axes, show_x) if spec.chart.x == "categorical" else False
+    # Measure what was drawn and place everything again: twice, since the ticks chosen depend
+    # on the panel size; then once more if categorical labels had to be tilted.
+    crowded = False
+    legend_room = 0.0 if in_cell or key is None else legend_w
+    for step in range(3):
+        if step == 2:
+            crowded = spec.chart.x == "categorical" and _rotate_if_crowded(fig, axes, show_x)
+            if not crowded:
+                break
         ytick_w = _measure(fig, axes, "y", show_y)
         xtick_h = _measure(fig, axes, "x", show_x)
-        m = margins(0.0 if in_cell or key is None else legend_w, ytick_w, xtick_h)
+        overhang = _right_overhang(fig, axes, show_x)
+        m = margins(legend_room, ytick_w, xtick_h)
+        if overhang > m.right:
+            m = replace(m, right=overhang + 0.3)
         grid = pick(m)
         height = spec.height_mm or L.grid_height(grid.rows, grid.panel_h, m)
         fig.set_size_inches(mm_to_in(spec.width_mm), mm_to_in(height))
@@ -329,8 +394,8 @@ def build_figure(spec: FigureSpec, data: FigureData):
             ytop = b + h + m.title - xtick_h - TICK_MM - 0.5
             room_w = (grid.cols - c0) * (grid.panel_w + m.hgap) - m.hgap - 1.0
         else:
-            x0, ytop = gx1 + LEGEND_GAP, gy1
-            room_w = legend_w
+            x0 = gx1 + 1.2 + (L.text_mm(st.title_pt) * 2 + 1.2 if spec.grid else 0.0)
+            ytop, room_w = gy1, legend_w
         _draw_key(fig, key, ctx, spec, x0, ytop, room_w, W, H, horizontal=in_cell)
 
     record = {
@@ -353,9 +418,10 @@ def build_figure(spec: FigureSpec, data: FigureData):
 def _y_title(spec: FigureSpec) -> str:
     if spec.y and spec.chart.y is not None:
         return spec.axis_title(spec.y)
-    return {"histogram": "Count", "density": "Density", "count-bars":
-            ("Sum of " + spec.axis_title(spec.weight)) if spec.weight else "Count",
-            "shares": "Share"}.get(spec.chart.name, "")
+    return {"histogram": "Count", "density": "Density",
+            "count-bars": spec.axis_title(spec.weight) if spec.weight else "Count",
+            "shares": "Share" + (f" of {spec.axis_title(spec.weight).lower()}" if spec.weight else "")
+            }.get(spec.chart.name, "")
 
 
 def _rule(fig, x0, x1, y0, y1=None):
@@ -367,16 +433,7 @@ def _rule(fig, x0, x1, y0, y1=None):
 def _draw_key(fig, key, ctx: Context, spec: FigureSpec, x0, ytop, room_w, W, H, horizontal):
     st = spec.style
     if key == "categories":
-        from matplotlib.lines import Line2D
-        from matplotlib.patches import Patch
-        point_like = spec.chart.name in ("scatter",)
-        handles = []
-        for level, hexc in ctx.colours.items():
-            if point_like:
-                handles.append(Line2D([], [], linestyle="none", marker="o", markersize=3.5,
-                                      markerfacecolor=hexc, markeredgewidth=0, label=str(level)))
-            else:
-                handles.append(Patch(facecolor=hexc, edgecolor="none", label=str(level)))
+        handles = _legend_handles(ctx, spec)
         ncol = 1
         if horizontal:
             per = max(_text_width_mm(str(k), st.tick_pt) for k in ctx.colours) + 5
@@ -396,12 +453,12 @@ def _draw_key(fig, key, ctx: Context, spec: FigureSpec, x0, ytop, room_w, W, H, 
         fig.text(x0 / W, (ytop - title_h) / H, ctx.colour_title, fontsize=st.tick_pt, ha="left",
                  va="bottom")
     else:
-        title_h = L.text_mm(st.tick_pt) * 2.2
-        bh = min(35.0, max(12.0, ytop - 12))
+        lines = _wrap(ctx.colour_title, room_w, st.tick_pt)
+        title_h = L.text_mm(st.tick_pt, len(lines)) + 0.8
+        bh = min(35.0, max(12.0, ytop - title_h - 8))
         cax = fig.add_axes((x0 / W, (ytop - title_h - bh) / H, 2.4 / W, bh / H))
         bar = fig.colorbar(mappable, cax=cax, orientation="vertical")
-        t = fig.text(x0 / W, (ytop - title_h + 0.6) / H, ctx.colour_title, fontsize=st.tick_pt,
-                     ha="left", va="bottom", wrap=False)
-        _shorten(fig, t, room_w + 2)
+        fig.text(x0 / W, ytop / H, "\n".join(lines), fontsize=st.tick_pt, ha="left", va="top",
+                 linespacing=1.1)
     bar.outline.set_linewidth(0.4)
     bar.ax.tick_params(labelsize=st.tick_pt, width=0.4, length=1.5)

@@ -19,6 +19,8 @@ import numpy as np
 from . import __version__
 
 SIDECAR_VERSION = 1
+_UMASK = os.umask(0)
+os.umask(_UMASK)
 
 
 def versions() -> dict:
@@ -83,6 +85,7 @@ def atomic_outputs(targets: list[Path]):
             t.parent.mkdir(parents=True, exist_ok=True)
             fd, tmp = tempfile.mkstemp(prefix=f".{t.name}.", suffix=".part", dir=t.parent)
             os.close(fd)
+            os.chmod(tmp, 0o666 & ~_UMASK)   # mkstemp makes 0600; outputs get the usual mode
             temps.append(Path(tmp))
         yield temps
         for tmp, t in zip(temps, targets):

@@ -42,7 +42,6 @@ for _row in FK_ROWS:
 rule all_figures:
     input:
         [f"{FK_RESULTS}/figures/{row.id}.json" for row in FK_ROWS],
-    default_target: True
 
 
 def _figure_outputs():
