@@ -137,7 +137,7 @@ def _check_kind(frame: pd.DataFrame, field: str, need: str, spec: FigureSpec, ro
         raise spec.err(f"{role} field '{field}' must be numeric for chart '{spec.chart.name}'",
                        field=role, value=f"{field} holds text such as {sample}",
                        allowed="a numeric column")
-    if need == CATEGORY and pd.api.types.is_float_dtype(s):
+    if need == CATEGORY and pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
         distinct = s.nunique()
         if distinct > 50:
             raise spec.err(f"{role} field '{field}' is continuous ({distinct} distinct values) but chart "

@@ -1,0 +1,45 @@
+"""Shared fixtures: small copies of the demo manuscript built through Snakemake."""
+from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+REPO = Path(__file__).resolve().parents[1]
+DEMO_SCALE = "0.05"   # 5% of the demo's rows: every figure kind, fast enough for CI
+
+
+def copy_project(dest: Path) -> Path:
+    """The demo manuscript without its data or results (styles copied, not linked)."""
+    dest.mkdir(parents=True, exist_ok=True)
+    shutil.copy(REPO / "Snakefile", dest / "Snakefile")
+    shutil.copytree(REPO / "config", dest / "config", symlinks=False)
+    shutil.copytree(REPO / "figkit" / "styles", dest / "styles")
+    return dest
+
+
+def make_demo_data(project: Path, scale: str = DEMO_SCALE) -> None:
+    subprocess.run([sys.executable, "-m", "figkit.demo", str(project / "data"), "--scale", scale],
+                   check=True, capture_output=True)
+
+
+def snakemake(project: Path, *args: str, check: bool = True) -> subprocess.CompletedProcess:
+    env = dict(os.environ, MPLBACKEND="Agg")
+    proc = subprocess.run([sys.executable, "-m", "snakemake", "--cores", "2", *args], cwd=project,
+                          capture_output=True, text=True, env=env)
+    if check and proc.returncode != 0:
+        raise AssertionError(f"snakemake {' '.join(args)} failed:\n{proc.stdout[-3000:]}\n{proc.stderr[-3000:]}")
+    return proc
+
+
+@pytest.fixture(scope="session")
+def built_demo(tmp_path_factory) -> Path:
+    """The demo manuscript at reduced scale, built once through Snakemake."""
+    project = copy_project(tmp_path_factory.mktemp("demo"))
+    make_demo_data(project)
+    snakemake(project)
+    return project

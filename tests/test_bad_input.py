@@ -1,0 +1,145 @@
+"""Malformed rows: each mistake gives one line naming row, figure, field, bad value and what is
+allowed; no traceback and no half-written output."""
+from __future__ import annotations
+
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from conftest import REPO, make_demo_data, snakemake
+
+HEADER = ["id", "dataset", "chart", "x", "y", "colour", "weight", "strata", "trend", "scales",
+          "filter", "bands", "size", "options"]
+GOOD = dict(id="good", dataset="readings", chart="scatter", x="water_temp_c", y="dissolved_oxygen_mgl",
+            strata="land_use")
+
+# (row cells, words the one-line message must contain)
+CASES = {
+    "unknown chart": (dict(GOOD, id="b1", chart="pie"),
+                      ["row 3", "b1", "chart", "'pie'", "scatter", "hexbins"]),
+    "unknown dataset": (dict(GOOD, id="b2", dataset="rainfall"),
+                        ["row 3", "b2", "dataset", "'rainfall'", "readings"]),
+    "unknown field": (dict(GOOD, id="b3", x="water_temp"),
+                      ["row 3", "b3", "field 'x'", "'water_temp'", "water_temp_c"]),
+    "text where numbers needed": (dict(GOOD, id="b4", y="site"),
+                                  ["row 3", "b4", "field 'y'", "site", "numeric"]),
+    "chart needs y": (dict(GOOD, id="b5", y=""), ["row 3", "b5", "field 'y'", "needs"]),
+    "chart takes no y": (dict(GOOD, id="b6", chart="histogram"),
+                         ["row 3", "b6", "field 'y'", "dissolved_oxygen_mgl", "leave 'y' empty"]),
+    "trend on a box plot": (dict(GOOD, id="b7", chart="box", x="land_use", trend="line"),
+                            ["row 3", "b7", "trend", "'line'", "scatter", "hexbins"]),
+    "unknown preset": (dict(GOOD, id="b8", size="double"),
+                       ["row 3", "b8", "size", "'double'", "single", "full"]),
+    "bad filter grammar": (dict(GOOD, id="b9", filter="season == 'summer' and"),
+                           ["row 3", "b9", "filter", "column"]),
+    "filter on a missing column": (dict(GOOD, id="b10", filter="depth > 3"),
+                                   ["row 3", "b10", "filter", "depth", "water_temp_c"]),
+    "filter keeps nothing": (dict(GOOD, id="b11", filter="water_temp_c > 1000"),
+                             ["row 3", "b11", "filter", "no rows left"]),
+    "unknown band set": (dict(GOOD, id="b12", bands="rainfall"),
+                         ["row 3", "b12", "bands", "'rainfall'", "flow"]),
+    "unknown option": (dict(GOOD, id="b13", options="smoothness=3"),
+                       ["row 3", "b13", "options", "smoothness", "points"]),
+    "bad option value": (dict(GOOD, id="b14", trend="loess", options="span=2"),
+                         ["row 3", "b14", "options", "span", "2"]),
+    "bad scales": (dict(GOOD, id="b15", scales="loose"),
+                   ["row 3", "b15", "scales", "'loose'", "free"]),
+    "continuous field as categories": (dict(GOOD, id="b16", chart="box", x="conductivity_uscm",
+                                            y="water_temp_c"),
+                                       ["row 3", "b16", "field 'x'", "continuous", "band"]),
+    "bad id": (dict(GOOD, id="has space"), ["row 3", "id", "'has space'"]),
+}
+
+
+@pytest.fixture(scope="module")
+def project(tmp_path_factory) -> Path:
+    from conftest import copy_project
+    root = copy_project(tmp_path_factory.mktemp("bad"))
+    make_demo_data(root, "0.02")
+    return root
+
+
+def write_sheet(project: Path, *rows: dict) -> None:
+    lines = ["\t".join(HEADER)] + ["\t".join(r.get(h, "") for h in HEADER) for r in rows]
+    (project / "config" / "figures.tsv").write_text("\n".join(lines) + "\n")
+
+
+def run_render(project: Path, fid: str) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-m", "figkit", "render", "--id", fid], cwd=project,
+                          capture_output=True, text=True)
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_one_line_error(project, name):
+    cells, words = CASES[name]
+    write_sheet(project, GOOD, cells)
+    proc = run_render(project, cells["id"])
+    assert proc.returncode == 2, proc.stderr
+    err = proc.stderr.strip()
+    assert "Traceback" not in err
+    assert len(err.splitlines()) == 1, err
+    for w in words:
+        assert w in err, f"{name}: '{w}' missing from: {err}"
+    out = project / "results" / "figures"
+    assert not list(out.glob(f"{cells['id']}.*")) if out.exists() else True
+    assert not list(out.glob(".*.part")) if out.exists() else True
+
+
+def test_missing_dataset_file(project, tmp_path):
+    root = tmp_path / "p"
+    shutil.copytree(project, root, symlinks=True)
+    (root / "data" / "readings.csv").unlink()
+    write_sheet(root, GOOD)
+    proc = run_render(root, "good")
+    assert proc.returncode == 2
+    assert "dataset file not found" in proc.stderr and "readings.csv" in proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1
+
+
+def test_unreadable_dataset_file(project, tmp_path):
+    root = tmp_path / "p"
+    shutil.copytree(project, root, symlinks=True)
+    (root / "data" / "readings.csv").write_bytes(b"\xff\xfe\x00garbage\x00\n\x00\x01")
+    write_sheet(root, GOOD)
+    proc = run_render(root, "good")
+    assert proc.returncode == 2
+    assert "Traceback" not in proc.stderr and len(proc.stderr.strip().splitlines()) == 1
+
+
+def test_bad_config_is_one_line(project, tmp_path):
+    root = tmp_path / "p"
+    shutil.copytree(project, root, symlinks=True)
+    cfg = root / "config" / "config.yaml"
+    cfg.write_text(cfg.read_text().replace("formats: [pdf, png, svg]", "formats: [pdf, jpeg]"))
+    write_sheet(root, GOOD)
+    proc = run_render(root, "good")
+    assert proc.returncode == 2
+    assert "formats" in proc.stderr and "jpeg" in proc.stderr and "png" in proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1
+
+
+def test_repeated_id_is_reported(project):
+    write_sheet(project, GOOD, dict(GOOD))
+    proc = run_render(project, "good")
+    # the first row builds; the repeated one is named with both row numbers
+    lines = (project / "config" / "figures.tsv").read_text().splitlines()
+    assert len(lines) == 3
+    from figkit.sheet import read_sheet
+    rows = read_sheet(project / "config" / "figures.tsv")
+    assert rows[1].error is not None and "row 2" in str(rows[1].error) and "row 3" in str(rows[1].error)
+
+
+def test_one_bad_row_does_not_stop_the_others(project, tmp_path):
+    root = tmp_path / "p"
+    shutil.copytree(project, root, symlinks=True)
+    write_sheet(root, GOOD, dict(GOOD, id="broken", x="no_such_field"),
+                dict(GOOD, id="also-good", chart="hexbins"))
+    proc = snakemake(root, "--keep-going", check=False)
+    assert proc.returncode != 0
+    out = root / "results" / "figures"
+    assert (out / "good.png").is_file() and (out / "also-good.png").is_file()
+    assert not list(out.glob("broken.*"))
+    assert "no column 'no_such_field'" in proc.stdout + proc.stderr
