@@ -160,6 +160,10 @@ def render(project: Project, figure_id: str) -> dict:
         from .colour import separability
         sep = separability(drawn["colours"])
         cautions = list(drawn["cautions"])
+        if spec.scales != "shared" and len(data.panels) > 1 and spec.chart.name in (
+                "count-bars", "histogram", "density", "shares", "scatter", "hexbins", "box", "violin"):
+            cautions.append(f"scales are '{spec.scales}': panels have their own axis ranges, so "
+                            "compare shapes within a panel, not heights across panels")
         if spec.trend == "loess":
             cautions.append("LOESS shows a local average; its shape depends on the span "
                             f"({spec.options.get('span', 0.75)}) and says nothing about uncertainty")
