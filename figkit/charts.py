@@ -412,7 +412,10 @@ def prepare_histogram(ctx: Context) -> None:
     rule = spec.options.get("bins", "fd")
     rule = int(float(rule)) if rule not in ("fd", "sturges") else rule
     # Edges from the pooled data of every panel: the same bins everywhere (comparable panels).
-    ctx.shared["edges"] = stats.bin_edges(x, rule) if x.size else np.linspace(0, 1, 11)
+    edges = stats.bin_edges(x, rule) if x.size else np.linspace(0, 1, 11)
+    if isinstance(rule, str):   # a rule's width may move to the recorded grid; a given count stays
+        edges = stats.align_edges(edges, stats.data_resolution(x))
+    ctx.shared["edges"] = edges
     ctx.shared["bin_rule"] = rule
 
 
@@ -511,7 +514,7 @@ def prepare_tiles(ctx: Context) -> None:
             top = max(top, float(_counts(p.frame, [spec.x, spec.y], spec.weight).max()))
     import matplotlib.colors as mcolors
     ctx.norm = mcolors.Normalize(0, max(top, 1))     # one scale for every panel
-    ctx.colour_title = "Sum of " + spec.axis_title(spec.weight) if spec.weight else "Count"
+    ctx.colour_title = spec.axis_title(spec.weight) if spec.weight else "Count"
 
 
 def draw_tiles(ax, panel: Panel, ctx: Context) -> dict:
@@ -532,8 +535,10 @@ def draw_tiles(ax, panel: Panel, ctx: Context) -> dict:
     for i in range(len(yl)):
         for j in range(len(xl)):
             light = relative_luminance(rgba[i, j, :3]) > 0.4
-            ax.text(j, i, f"{mat[i, j]:.0f}", ha="center", va="center", fontsize=fontsize,
-                    color=INK if light else "white", zorder=3)
+            # Kept so the drawing stage can check at final size that each number fits its tile.
+            ctx.shared.setdefault("tile_texts", []).append(
+                ax.text(j, i, f"{mat[i, j]:.0f}", ha="center", va="center", fontsize=fontsize,
+                        color=INK if light else "white", zorder=3))
     ax.set_xticks(range(len(xl)))
     ax.set_xticklabels([str(v) for v in xl])
     ax.set_yticks(range(len(yl)))

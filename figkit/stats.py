@@ -815,3 +815,36 @@ def strata_slope_test(x, y, stratum) -> StrataTest | None:
     return StrataTest(F=float(f), df_num=df_num, df_den=df_den, p=p,
                       pooled_slope=float(coef_add[-1]), crude_slope=crude, n=int(n),
                       n_strata=k, excluded=excluded)
+
+
+def data_resolution(values) -> float | None:
+    """The grid the values were recorded on (e.g. 0.1 for readings rounded to one decimal):
+    the smallest gap between distinct values, when every gap is a whole multiple of it
+    (to 1e-6 relative).  None for values on no common grid."""
+    v = np.unique(np.asarray(values, dtype=float)[np.isfinite(np.asarray(values, dtype=float))])
+    if v.size < 3:
+        return None
+    gaps = np.diff(v)
+    step = float(gaps.min())
+    if step <= 0:
+        return None
+    ratio = gaps / step
+    if np.all(np.abs(ratio - np.round(ratio)) < 1e-6 * np.maximum(ratio, 1.0)):
+        return step
+    return None
+
+
+def align_edges(edges: np.ndarray, resolution: float | None) -> np.ndarray:
+    """Equal-width edges moved onto a recorded grid: the width rounded up to a whole number of
+    grid steps and the edges put half a step between recorded values.  Otherwise values rounded
+    to a grid fall unevenly into bins narrower than ~ a few steps, and the histogram shows a comb
+    that is an artefact of rounding, not of the data (common practice in histogram design)."""
+    edges = np.asarray(edges, dtype=float)
+    if resolution is None or edges.size < 2:
+        return edges
+    width = float(edges[1] - edges[0])
+    steps = max(1, int(math.ceil(width / resolution - 1e-9)))
+    width = steps * resolution
+    start = (math.floor(edges[0] / resolution + 1e-9) - 0.5) * resolution
+    n = int(math.ceil((edges[-1] - start) / width - 1e-9))
+    return start + width * np.arange(n + 1)
