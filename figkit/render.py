@@ -157,9 +157,13 @@ def render(project: Project, figure_id: str) -> dict:
             entry.update(rec)
             panels.append(entry)
 
-        from .colour import separability
+        from .colour import check_separability, separability
         sep = separability(drawn["colours"])
         cautions = list(drawn["cautions"])
+        collisions = check_separability(drawn["colours"], spec.style.min_colour_difference)
+        if collisions and spec.style.strict:
+            raise spec.err("colours too alike (strict house style): " + "; ".join(collisions))
+        cautions += collisions
         if spec.scales != "shared" and len(data.panels) > 1 and spec.chart.name in (
                 "count-bars", "histogram", "density", "shares", "scatter", "hexbins", "box", "violin"):
             cautions.append(f"scales are '{spec.scales}': panels have their own axis ranges, so "

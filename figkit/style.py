@@ -44,6 +44,7 @@ class HouseStyle:
     grid: str
     strict: bool
     dpi: int
+    min_colour_difference: float = 10.0   # CIEDE2000; ~10 is a rule of thumb (common practice)
 
     def width_mm(self, preset: str, *, row=None, figure=None) -> float:
         if preset not in self.sizes:
@@ -108,4 +109,5 @@ def load_style(name: str, styles_dir: Path | str, extra_sizes: dict | None = Non
         letter_pt=float(text["letter_pt"]), min_text_pt=float(mins["text_pt"]),
         min_line_pt=float(mins["line_pt"]), palette=str(data["palette"]),
         sequential=str(data["sequential"]), letters=data["letters"], grid=data["grid"],
-        strict=bool(data["strict"]), dpi=int(dpi or data["dpi"]))
+        strict=bool(data["strict"]), dpi=int(dpi or data["dpi"]),
+        min_colour_difference=float(data.get("min_colour_difference", 10.0)))
