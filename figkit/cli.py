@@ -5,6 +5,8 @@
     figkit lint                check the sheet, settings and styles without rendering
     figkit palettes --out DIR  swatch sheets of every built-in palette under simulated vision
     figkit info FILE           what a figure file says about where it came from
+    figkit preflight [ID ...]  re-check written figures against the house style's artwork rules
+    figkit compare OLD NEW     what changed between two builds of the figures
 
 A user's mistake prints one line (``figkit: error: ...``) and exits with status 2.
 """
@@ -85,6 +87,32 @@ def _cmd_info(args) -> int:
     from .provenance import read_file_metadata
     meta = read_file_metadata(Path(args.file))
     print(json.dumps(meta, indent=2, ensure_ascii=False))
+    return 0
+
+
+def _cmd_preflight(args) -> int:
+    """One line per failed check, then a summary; exit 2 on a failure in strict mode."""
+    from .preflight import failure_lines, preflight_project
+    from .render import load_project
+    results = preflight_project(load_project(args.project), args.ids, strict=args.strict)
+    failed = warned = 0
+    for fid, result in results:
+        for line in failure_lines(fid, result):
+            print(f"figkit: preflight: {line}")
+        bad = [c for c in result["checks"] if not c["passed"]]
+        failed += sum(c["level"] == "error" for c in bad)
+        warned += sum(c["level"] == "warning" for c in bad)
+    n_checks = sum(len(r["checks"]) for _, r in results)
+    print(f"figkit: preflight: {len(results)} figures, {n_checks} checks, {failed} failed, "
+          f"{warned} warnings")
+    return 2 if any(not r["passed"] and r["strict"] for _, r in results) else 0
+
+
+def _cmd_compare(args) -> int:
+    """Differences are information, not errors: exit 0 whatever changed."""
+    from .compare import compare_folders
+    report = compare_folders(args.old, args.new, out_dir=args.out, tolerance=args.tolerance)
+    print(report.summary())
     return 0
 
 
@@ -178,6 +206,19 @@ def build_parser() -> argparse.ArgumentParser:
     inf = sub.add_parser("info", help="print the provenance a figure file carries")
     inf.add_argument("file")
     inf.set_defaults(func=_cmd_info)
+    pf = sub.add_parser("preflight", help="re-check built figure files against the artwork rules")
+    pf.add_argument("ids", nargs="*", metavar="ID", help="figure ids (default: every row)")
+    pf.add_argument("--project", default=".", help="manuscript folder (default: here)")
+    pf.add_argument("--strict", action="store_true", help="exit 2 when any check fails")
+    pf.set_defaults(func=_cmd_preflight)
+    cmp = sub.add_parser("compare", help="say what changed between two folders of built figures")
+    cmp.add_argument("old", help="folder of the earlier build (results/figures)")
+    cmp.add_argument("new", help="folder of the later build")
+    cmp.add_argument("--out", help="folder for changes.md and one difference image per changed render")
+    cmp.add_argument("--tolerance", type=float, default=0.0, metavar="RMS",
+                     help="pixel RMS (0-255 scale) up to which two renders count as the same "
+                          "(default 0)")
+    cmp.set_defaults(func=_cmd_compare)
     return p
 
 

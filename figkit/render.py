@@ -160,9 +160,11 @@ def render(project: Project, figure_id: str) -> dict:
         from .colour import check_separability, separability
         sep = separability(drawn["colours"])
         cautions = list(drawn["cautions"])
+        # Greyscale is reported, not judged: most qualitative palettes fail it by design.
         collisions = check_separability(drawn["colours"], spec.style.min_colour_difference)
-        if collisions and spec.style.strict:
-            raise spec.err("colours too alike (strict house style): " + "; ".join(collisions))
+        judged = [c for c in collisions if "greyscale" not in c]
+        if judged and spec.style.strict:
+            raise spec.err("colours too alike (strict house style): " + "; ".join(judged))
         cautions += collisions
         if spec.scales != "shared" and len(data.panels) > 1 and spec.chart.name in (
                 "count-bars", "histogram", "density", "shares", "scatter", "hexbins", "box", "violin"):
@@ -208,6 +210,20 @@ def render(project: Project, figure_id: str) -> dict:
         with P.atomic_outputs(targets) as temps:
             for fmt, tmp in zip(spec.formats, temps):
                 _save(fig, tmp, fmt, spec, meta)
+            # Preflight reads the files just written (still under their temporary names); in a
+            # strict house style a failure aborts here and nothing is renamed into place.
+            from .preflight import preflight
+            pf = preflight({fmt: t for fmt, t in zip(spec.formats, temps)}, sizes_mm=spec.style.sizes,
+                           min_text_pt=spec.style.min_text_pt, min_line_pt=spec.style.min_line_pt,
+                           min_dpi=spec.style.min_dpi, min_delta_e=sep.min_delta_e,
+                           delta_e_threshold=spec.style.min_colour_difference, strict=spec.style.strict)
+            record["preflight"] = pf
+            failed = [c for c in pf["checks"] if not c["passed"] and c.get("level") != "warning"]
+            if failed and spec.style.strict:
+                raise spec.err("preflight failed: " + "; ".join(
+                    f"{c['name']} ({c['message']})" for c in failed))
+            for c in failed:
+                log.warning("%s: preflight: %s: %s", spec.id, c["name"], c["message"])
             temps[-2].write_text(_stats_csv(stat_lines), encoding="utf-8")
             temps[-1].write_text(P.dumps(record), encoding="utf-8")
     return P.clean(record)

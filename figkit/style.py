@@ -45,6 +45,7 @@ class HouseStyle:
     strict: bool
     dpi: int
     min_colour_difference: float = 10.0   # CIEDE2000; ~10 is a rule of thumb (common practice)
+    min_dpi: int = 500       # raster floor: 500-600 dpi for line art over halftone (journal guides)
 
     def width_mm(self, preset: str, *, row=None, figure=None) -> float:
         if preset not in self.sizes:
@@ -110,4 +111,5 @@ def load_style(name: str, styles_dir: Path | str, extra_sizes: dict | None = Non
         min_line_pt=float(mins["line_pt"]), palette=str(data["palette"]),
         sequential=str(data["sequential"]), letters=data["letters"], grid=data["grid"],
         strict=bool(data["strict"]), dpi=int(dpi or data["dpi"]),
-        min_colour_difference=float(data.get("min_colour_difference", 10.0)))
+        min_colour_difference=float(data.get("min_colour_difference", 10.0)),
+        min_dpi=int(mins.get("dpi", 500)))
