@@ -425,8 +425,11 @@ def _positive(name: str, value, *, integer: bool = False) -> None:
 def preflight(files: dict, *, sizes_mm: dict, min_text_pt: float, min_line_pt: float,
               min_dpi: int, max_bytes: int = DEFAULT_MAX_BYTES, min_delta_e: dict | None = None,
               delta_e_threshold: float = 10.0, strict: bool = False,
-              judged_vision: tuple[str, ...] = JUDGED_VISION) -> dict:
+              judged_vision: tuple[str, ...] = JUDGED_VISION, names: dict | None = None) -> dict:
     """Check written figure files against artwork rules by reading them back.
+
+    ``names`` (format -> file name) labels the checks when the files are still under temporary
+    names, so the verdict recorded in the sidecar does not depend on them.
 
     ``files`` maps a format (pdf, png, svg, tiff; otherwise the file suffix decides) to a path.
     Checks: PDF fonts embedded and no Type 3 (ISO 32000-1, 9.6.5, 9.8-9.9); page, drawing and
@@ -460,7 +463,8 @@ def preflight(files: dict, *, sizes_mm: dict, min_text_pt: float, min_line_pt: f
     for fmt, raw in files.items():
         path = Path(raw)
         kind = FORMATS.get(str(fmt).lower().lstrip(".")) or FORMATS.get(path.suffix.lower().lstrip("."))
-        label = path.name if FORMATS.get(path.suffix.lower().lstrip(".")) else f"{fmt} ({path.name})"
+        label = (names or {}).get(fmt) or (
+            path.name if FORMATS.get(path.suffix.lower().lstrip(".")) else f"{fmt} ({path.name})")
         if not path.is_file():
             checks.append(_check("file exists", False, None, None, "file not found", file=label))
             continue

@@ -216,7 +216,8 @@ def render(project: Project, figure_id: str) -> dict:
             pf = preflight({fmt: t for fmt, t in zip(spec.formats, temps)}, sizes_mm=spec.style.sizes,
                            min_text_pt=spec.style.min_text_pt, min_line_pt=spec.style.min_line_pt,
                            min_dpi=spec.style.min_dpi, min_delta_e=sep.min_delta_e,
-                           delta_e_threshold=spec.style.min_colour_difference, strict=spec.style.strict)
+                           delta_e_threshold=spec.style.min_colour_difference, strict=spec.style.strict,
+                           names=record["files"])
             record["preflight"] = pf
             failed = [c for c in pf["checks"] if not c["passed"] and c.get("level") != "warning"]
             if failed and spec.style.strict:
