@@ -127,3 +127,14 @@ class PanelTally:
     @property
     def y_mean(self) -> float | None:
         return self.y_sum / self.n if self.n else None
+
+
+def padded_range(lo: float, hi: float, frac: float = 0.04) -> tuple[float, float]:
+    """A data range widened by ``frac`` on each side (a zero-width range by 0.5), so points on
+    the edge are not drawn on the frame."""
+    if not np.isfinite(lo) or not np.isfinite(hi):
+        return 0.0, 1.0
+    if hi <= lo:
+        return lo - 0.5, hi + 0.5
+    pad = (hi - lo) * frac
+    return lo - pad, hi + pad

@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import FigkitError
-from .spec import CATEGORY, NUMERIC, Banding, FigureSpec
+from .spec import CATEGORY, NUMERIC, Banding, FigureSpec, check_columns
 
 
 def sha256_file(path: Path, chunk: int = 1 << 20) -> str:
@@ -100,20 +100,21 @@ def level_order(series: pd.Series, field: str, spec: FigureSpec) -> list:
     return sorted(present, key=natural_key)
 
 
-@dataclass
+@dataclass(eq=False)
 class Panel:
     label: str
     keys: dict            # field -> stratum value, as in the data
     frame: pd.DataFrame   # rows drawn (complete in every field the chart uses)
     n_dropped: int
     cell: tuple[int, int] | None = None   # (row, col) in a two-way grid
+    tally: object = None  # streamed data: an aggregate.PanelTally instead of rows
 
     @property
     def n(self) -> int:
-        return len(self.frame)
+        return self.tally.n if self.tally is not None else len(self.frame)
 
 
-@dataclass
+@dataclass(eq=False)
 class FigureData:
     panels: list[Panel]
     inputs: list[dict]            # [{path, sha256}]
@@ -122,6 +123,7 @@ class FigureData:
     levels: dict                  # field -> full ordered levels (for colours, x groups)
     n_unassigned: int             # rows whose strata value is missing
     grid_levels: tuple = ()       # two-way grid: (row levels, col levels)
+    streamed: dict | None = None  # set when the data were read chunk by chunk
 
 
 def _json_value(v):
@@ -145,12 +147,15 @@ def _check_kind(frame: pd.DataFrame, field: str, need: str, spec: FigureSpec, ro
                            allowed="a categorical column, or a band set (bands:) derived from it")
 
 
-def load_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureData:
-    """Read, derive, filter, type-check and split the data of one figure."""
+def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
+                     stream_above_bytes: int | None = None) -> FigureData:
+    """Read, derive, filter, type-check and split the data of one figure (chunk by chunk for
+    big files of the charts that only need counts, see :func:`stream_figure_data`)."""
     path = spec.data_path
     if not path.is_file():
         raise spec.err("dataset file not found", field="dataset", value=str(path))
-    from .spec import check_columns
+    if should_stream(spec, stream_above_bytes):
+        return stream_figure_data(spec, rel_to)
     check_columns(spec, read_columns(path))
     frame = read_dataset(path, spec.columns_needed())
     n_read = len(frame)
@@ -228,3 +233,186 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureData
         rel = path.name
     inputs = [{"path": rel, "sha256": sha256_file(path)}]
     return FigureData(panels, inputs, n_read, n_kept, levels, n_unassigned, grid_levels)
+
+
+# ---------------------------------------------------------------------------- streaming path
+#
+# Data bigger than memory: for the charts that only need counts and sums (hexbins, histogram)
+# the file is read in chunks with only the needed columns, twice: pass 1 finds the shared extent,
+# the strata values and a fixed-seed sample for bin rules; pass 2 tallies every panel (counts per
+# hexagon or bin, n, n_dropped, means, straight-line sums).  Memory is bounded by the chunk size.
+
+STREAM_CHARTS = ("hexbins", "histogram")
+STREAM_ABOVE_BYTES = 256 * 2 ** 20      # files larger than this stream (config: stream_above_mb)
+CHUNK_ROWS = 1_000_000
+SAMPLE_ROWS = 200_000                   # fixed-seed sample for the Freedman-Diaconis quartiles
+
+
+def should_stream(spec: FigureSpec, limit_bytes: int | None = None) -> bool:
+    if spec.chart.name not in STREAM_CHARTS or spec.trend == "loess":
+        return False
+    limit = STREAM_ABOVE_BYTES if limit_bytes is None else limit_bytes
+    return spec.data_path.is_file() and spec.data_path.stat().st_size > limit
+
+
+def iter_chunks(path: Path, columns: list[str], rows: int = CHUNK_ROWS):
+    """DataFrames of at most ``rows`` rows holding only ``columns``."""
+    kind = _reader(path)
+    if kind == "parquet":
+        try:
+            import pyarrow.parquet as pq
+        except ImportError:
+            raise FigkitError("reading Parquet needs pyarrow: pip install pyarrow", value=str(path)) from None
+        for batch in pq.ParquetFile(path).iter_batches(batch_size=rows, columns=columns):
+            yield batch.to_pandas()
+        return
+    try:
+        yield from pd.read_csv(path, usecols=columns, sep="\t" if kind == "tsv" else ",",
+                               chunksize=rows, low_memory=False)
+    except (OSError, ValueError, UnicodeDecodeError, pd.errors.ParserError) as exc:
+        first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise FigkitError(f"dataset file cannot be read: {first}", value=str(path)) from None
+
+
+def _prepared_chunks(spec: FigureSpec, progress=None):
+    """Chunks with bands derived and the filter applied; yields (chunk, rows read)."""
+    for chunk in iter_chunks(spec.data_path, spec.columns_needed()):
+        read = len(chunk)
+        for banding in spec.bandings:
+            chunk[banding.name] = apply_banding(chunk[banding.source], banding)
+        if spec.filter is not None:
+            chunk = chunk.loc[spec.filter.evaluate(chunk)]
+        if progress is not None:
+            progress(read)
+        yield chunk, read
+
+
+def _progress_printer(path: Path):
+    """A one-line progress count on a terminal only (never in logs or CI output)."""
+    import sys
+    if not sys.stderr.isatty():
+        return None, lambda: None
+    total = [0]
+
+    def step(rows):
+        total[0] += rows
+        sys.stderr.write(f"\rfigkit: reading {path.name}: {total[0]:,} rows")
+        sys.stderr.flush()
+
+    def done():
+        sys.stderr.write("\n")
+    return step, done
+
+
+def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureData:
+    """The streaming twin of :func:`load_figure_data` (same panels, counts, means and slopes)."""
+    from .aggregate import HexGrid, PanelTally
+    from . import stats
+
+    path = spec.data_path
+    check_columns(spec, read_columns(path))
+    used = list(dict.fromkeys(f for f in (spec.x, spec.y, spec.weight) if f))
+    strata = list(spec.strata)
+    rng = np.random.default_rng(20261202)
+
+    # Pass 1: extent, strata values, counts, a sample of x for bin rules.
+    n_read = n_kept = 0
+    lo = {f: np.inf for f in used}
+    hi = {f: -np.inf for f in used}
+    seen: dict = {f: set() for f in strata}
+    sample, dtypes_checked = [], False
+    step, done = _progress_printer(path)
+    for chunk, read in _prepared_chunks(spec, step):
+        n_read += read
+        n_kept += len(chunk)
+        if not dtypes_checked and len(chunk):
+            for role, need in (("x", spec.chart.x), ("y", spec.chart.y)):
+                fld = getattr(spec, role)
+                if fld and need:
+                    _check_kind(chunk, fld, need, spec, role)
+            dtypes_checked = True
+        for f in used:
+            v = chunk[f].to_numpy(dtype=float)
+            if np.isfinite(v).any():
+                lo[f] = min(lo[f], float(np.nanmin(v)))
+                hi[f] = max(hi[f], float(np.nanmax(v)))
+        for f in strata:
+            seen[f].update(chunk[f].dropna().unique().tolist())
+        if spec.chart.name == "histogram" and len(chunk):
+            keep = rng.random(len(chunk)) < min(1.0, SAMPLE_ROWS / max(len(chunk), 1))
+            sample.append(chunk.loc[keep, spec.x].dropna().to_numpy(dtype=float))
+    if n_kept == 0:
+        raise spec.err("no rows left after the filter", field="filter",
+                       value=spec.filter.text if spec.filter is not None else None,
+                       allowed="a filter that keeps some rows")
+
+    # Panels in the documented order.
+    def order(f):
+        return level_order(pd.Series(sorted(seen[f], key=natural_key)), f, spec)
+    if not strata:
+        keys_list, cells = [{}], [None]
+    elif len(strata) == 1:
+        keys_list, cells = [{strata[0]: v} for v in order(strata[0])], None
+    else:
+        rl, cl = order(strata[0]), order(strata[1])
+        keys_list = [{strata[0]: r, strata[1]: c} for r in rl for c in cl]
+        cells = [(i, j) for i in range(len(rl)) for j in range(len(cl))]
+    grid = edges = None
+    if spec.chart.name == "hexbins":
+        from .aggregate import padded_range
+        xl, yl = padded_range(lo[spec.x], hi[spec.x]), padded_range(lo[spec.y], hi[spec.y])
+        grid = HexGrid(xl[0], xl[1], yl[0], yl[1], int(spec.options.get("cells", 30)))
+    else:
+        pooled = np.concatenate(sample) if sample else np.array([lo[spec.x], hi[spec.x]])
+        rule = spec.options.get("bins", "fd")
+        rule = int(float(rule)) if rule not in ("fd", "sturges") else rule
+        # The rule's width from the sample; the edges span the full data range.
+        width_edges = stats.bin_edges(pooled, rule)
+        k = max(1, int(round((hi[spec.x] - lo[spec.x]) / (width_edges[1] - width_edges[0]))))
+        edges = np.linspace(lo[spec.x], hi[spec.x], k + 1) if isinstance(rule, str) else \
+            np.linspace(lo[spec.x], hi[spec.x], rule + 1)
+        if isinstance(rule, str):
+            edges = stats.align_edges(edges, stats.data_resolution(pooled))
+
+    # Pass 2: tallies.
+    tallies = {tuple(k.get(f) for f in strata): PanelTally() for k in keys_list}
+    n_unassigned = 0
+    for chunk, _ in _prepared_chunks(spec):
+        if strata:
+            has = chunk[strata].notna().all(axis=1)
+            n_unassigned += int((~has).sum())
+            chunk = chunk.loc[has]
+            groups = chunk.groupby(strata, sort=False, observed=True)
+        else:
+            groups = [((), chunk)]
+        for key, part in groups:
+            key = key if isinstance(key, tuple) else (key,)
+            tally = tallies[tuple(_json_value(k) for k in key)] if strata else tallies[()]
+            complete = part[used].notna().all(axis=1)
+            tally.n_dropped += int((~complete).sum())
+            part = part.loc[complete]
+            x = part[spec.x].to_numpy(dtype=float)
+            y = part[spec.y].to_numpy(dtype=float) if spec.y else None
+            tally.add_points(x, y, grid, edges)
+    done()
+
+    panels = []
+    for i, keys in enumerate(keys_list):
+        tally = tallies[tuple(keys.get(f) for f in strata)]
+        label = " / ".join(str(v) for v in keys.values())
+        frame = pd.DataFrame({f: pd.Series(dtype=float) for f in used})
+        panels.append(Panel(label, {k: _json_value(v) for k, v in keys.items()}, frame,
+                            tally.n_dropped, cells[i] if cells else None, tally=tally))
+    root = rel_to or spec.root
+    try:
+        rel = path.resolve().relative_to(Path(root).resolve()).as_posix()
+    except ValueError:
+        rel = path.name
+    grid_levels = (order(strata[0]), order(strata[1])) if len(strata) == 2 else ()
+    data = FigureData(panels, [{"path": rel, "sha256": sha256_file(path)}], n_read, n_kept, {},
+                      n_unassigned, grid_levels)
+    data.streamed = {"chunk_rows": CHUNK_ROWS, "hex_grid": None if grid is None else
+                     [grid.xmin, grid.xmax, grid.ymin, grid.ymax, grid.nx],
+                     "bin_edges": None if edges is None else edges.tolist(),
+                     "sample_rows": int(sum(len(s) for s in sample)) if sample else None}
+    return data

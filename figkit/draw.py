@@ -1,27 +1,34 @@
 """Stage 6b, the drawing: one FigureSpec + its FigureData -> a matplotlib Figure at print size.
 
 Order of work: colours -> grid (layout.choose_grid) -> axes -> chart kind's prepare/draw/finish ->
-outer tick labels only -> measure the tick labels actually drawn and place everything again in
-mm -> panel titles, axis titles, legend or colour bar.  Call inside ``matplotlib.rc_context`` with
-the house style's rcParams (see :func:`figkit.render.render_spec`).
+outer tick labels only -> measure what was drawn and place everything again in mm until grid and
+margins settle (tick labels, crowded category labels tilted or turned upright, panel and axis
+titles on one or two lines) -> panel titles, axis titles -> legend or colour bar (moved beside the
+grid when it does not fit the empty cell) -> ticks pinned to what is drawn.  Call inside
+``matplotlib.rc_context`` with the house style's rcParams (see :func:`figkit.render.render`).
 """
 from __future__ import annotations
 
-import numpy as np
-import pandas as pd
-
 from dataclasses import replace
 
+import numpy as np
+
 from . import layout as L
-from .charts import DRAWERS, NEUTRAL, Context
+from .charts import DRAWERS, Context
 from .colour import assign_categories
 from .data import FigureData
 from .errors import FigkitError
 from .spec import FigureSpec
 from .style import mm_to_in, pt_to_mm
 
-TICK_MM = pt_to_mm(2.0 + 1.5)      # tick length + pad (pt in the style sheets)
 HEADER_RULE = "#9AA1A9"
+ELLIPSIS = "…"
+EDGE_MM = 0.3          # nothing is drawn closer than this to the canvas edge
+LABEL_GAP_MM = 0.8     # clear space between neighbouring level labels read side by side (common practice)
+TILT_DEG = 35          # first remedy for crowded category labels (common practice)
+WRAP_CHARS = 16        # upright category labels longer than this go on two lines (common practice)
+# Category label arrangements tried in turn until the labels clear each other: (angle, two lines).
+LABEL_STEPS = ((0, False), (0, True), (TILT_DEG, False), (90, True), (90, False))
 
 
 def _text_width_mm(text: str, pt: float) -> float:
@@ -29,6 +36,211 @@ def _text_width_mm(text: str, pt: float) -> float:
     the final layout uses measured extents."""
     return len(str(text)) * pt * 0.6 * 25.4 / 72
 
+
+def _tick_mm(spec: FigureSpec) -> float:
+    """Tick length + label pad in mm, read from the style sheet (the larger of x and y)."""
+    rc = spec.style.rc
+    return pt_to_mm(max(float(rc.get(f"{a}tick.major.size", 2.0)) + float(rc.get(f"{a}tick.major.pad", 1.5))
+                        for a in "xy"))
+
+
+def _mm(fig, px: float) -> float:
+    return px / fig.dpi * 25.4
+
+
+# ---------------------------------------------------------------------------- what is drawn
+
+def _in_view(axis, locs) -> np.ndarray:
+    """Mask of the tick locations matplotlib draws: inside the view interval, compared in the
+    axis' scale with matplotlib's own relative tolerance of 1e-10."""
+    locs = np.asarray(locs, dtype=float)
+    if locs.size == 0:
+        return np.zeros(0, dtype=bool)
+    tr = axis.get_transform()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        lo, hi = sorted(tr.transform(np.asarray(axis.get_view_interval(), dtype=float)))
+        t = tr.transform(locs)
+    tol = 1e-10 * abs(hi - lo)
+    return (t >= lo - tol) & (t <= hi + tol)
+
+
+def _ticks_now(axis, major: bool) -> tuple[np.ndarray, list]:
+    """Place an axis' ticks for its current size and limits, as a draw would, and return the
+    locations with their tick objects (the axis keeps extra tick objects from earlier sizes)."""
+    if major:
+        locs, fmt, get = axis.get_majorticklocs(), axis.get_major_formatter(), axis.get_major_ticks
+    else:
+        locs, fmt, get = axis.get_minorticklocs(), axis.get_minor_formatter(), axis.get_minor_ticks
+    locs = np.asarray(locs, dtype=float)
+    ticks = get(len(locs))
+    for tick, loc, text in zip(ticks, locs, fmt.format_ticks(locs)):
+        tick.update_position(loc)
+        tick.label1.set_text(text)
+        tick.label2.set_text(text)
+    return locs, ticks
+
+
+def _drawn_tick_labels(axis, renderer=None) -> list:
+    """Tick labels that are actually drawn: visible, non-empty and inside the view (the axis
+    keeps label objects for ticks outside the view and for ticks of earlier sizes)."""
+    out = []
+    for major in (True, False):
+        locs, ticks = _ticks_now(axis, major)
+        for tick, keep in zip(ticks, _in_view(axis, locs)):
+            if keep:
+                out += [t for t in (tick.label1, tick.label2) if t.get_visible() and t.get_text().strip()]
+    return out
+
+
+def _drawn_texts(fig) -> list:
+    """Every text that is drawn, tick labels included (see :func:`_drawn_tick_labels`)."""
+    renderer = fig.canvas.get_renderer()
+
+    def shown(ts):
+        return [t for t in ts if t.get_visible() and t.get_text().strip()]
+
+    out = []
+    for ax in fig.axes:
+        if not ax.get_visible():
+            continue
+        for axis in (ax.xaxis, ax.yaxis):
+            if axis.get_visible():
+                out += _drawn_tick_labels(axis, renderer) + shown([axis.label, axis.offsetText])
+        out += shown(ax.texts)
+        leg = ax.get_legend()
+        if leg is not None:
+            out += shown([leg.get_title(), *leg.get_texts()])
+    out += shown(fig.texts)
+    for leg in fig.legends:
+        out += shown([leg.get_title(), *leg.get_texts()])
+    return out
+
+
+def _overlap(a, b, gap: float = 0.0) -> bool:
+    """Boxes overlap (tolerance 0.5 px, as figkit.checks); ``gap`` px of clear space required
+    side by side."""
+    return (a.x0 < b.x1 + gap - 0.5 and b.x0 < a.x1 + gap - 0.5 and
+            a.y0 < b.y1 - 0.5 and b.y0 < a.y1 - 0.5)
+
+
+def _outside(fig, bb) -> bool:
+    return bb.x0 < -0.5 or bb.y0 < -0.5 or bb.x1 > fig.bbox.width + 0.5 or bb.y1 > fig.bbox.height + 0.5
+
+
+def _measure(fig, axes, which: str) -> float:
+    """Largest extent (mm) of the tick labels drawn: width for 'y', height for 'x'."""
+    renderer = fig.canvas.get_renderer()
+    best = 0.0
+    for ax in axes:
+        for t in _drawn_tick_labels(ax.yaxis if which == "y" else ax.xaxis, renderer):
+            bb = t.get_window_extent(renderer)
+            best = max(best, _mm(fig, bb.width if which == "y" else bb.height))
+    return best
+
+
+def _right_overhang(fig, axes, grid: L.Grid) -> float:
+    """How far (mm) x tick labels of the last panel column reach past its right edge."""
+    renderer = fig.canvas.get_renderer()
+    worst = 0.0
+    for i, ax in enumerate(axes):
+        if i % grid.cols != grid.cols - 1:
+            continue
+        right = ax.get_position().x1 * fig.bbox.width
+        for t in _drawn_tick_labels(ax.xaxis, renderer):
+            worst = max(worst, _mm(fig, t.get_window_extent(renderer).x1 - right))
+    return worst
+
+
+def _x_labels_clash(fig, axes, side_gap_mm: float) -> bool:
+    """True when drawn x tick labels touch each other or a y tick label, or leave the canvas."""
+    renderer = fig.canvas.get_renderer()
+    xs, ys = [], []
+    for ax in axes:
+        xs += [t.get_window_extent(renderer) for t in _drawn_tick_labels(ax.xaxis, renderer)]
+        ys += [t.get_window_extent(renderer) for t in _drawn_tick_labels(ax.yaxis, renderer)]
+    gap = side_gap_mm / 25.4 * fig.dpi
+    if any(_outside(fig, b) for b in xs):
+        return True
+    for i, a in enumerate(xs):
+        if any(_overlap(a, b, gap) for b in xs[i + 1:]) or any(_overlap(a, b) for b in ys):
+            return True
+    return False
+
+
+# ---------------------------------------------------------------------------- fitting text
+
+def _measurer(fig, pt: float, weight: str = "normal"):
+    """A function text -> drawn width in mm at ``pt`` (measured on a scratch text of ``fig``)."""
+    renderer = fig.canvas.get_renderer()
+    probe = fig.text(0, 0, "", fontsize=pt, fontweight=weight)
+    cache: dict[str, float] = {}
+
+    def width(text: str) -> float:
+        if text not in cache:
+            probe.set_text(text)
+            cache[text] = _mm(fig, probe.get_window_extent(renderer).width) if text else 0.0
+            probe.set_text("")   # a probe holding text would count as drawn text
+        return cache[text]
+
+    width.close = probe.remove
+    return width
+
+
+def _shorten_middle(width, text: str, max_mm: float) -> str:
+    """Cut characters from the middle, marked by an ellipsis, until the text fits: the start and
+    the end (where panel names usually differ, e.g. a trailing number) both stay readable."""
+    if width(text) <= max_mm:
+        return text
+    for keep in range(len(text) - 1, 0, -1):
+        head = (keep + 1) // 2
+        tail = keep - head
+        cand = text[:head].rstrip() + ELLIPSIS + (text[len(text) - tail:].lstrip() if tail else "")
+        if width(cand) <= max_mm:
+            return cand
+    return ELLIPSIS
+
+
+def _fit_text(width, text: str, max_mm: float, max_lines: int = 1) -> str:
+    """``text`` fitted into ``max_mm``: as it is; else split once at the space giving the most
+    even pair of lines that both fit (when two lines are allowed); else shortened in the middle."""
+    if width(text) <= max_mm:
+        return text
+    words = text.split(" ")
+    if max_lines >= 2 and len(words) > 1:
+        best = None
+        for k in range(1, len(words)):
+            a, b = " ".join(words[:k]), " ".join(words[k:])
+            widest = max(width(a), width(b))
+            if widest <= max_mm and (best is None or widest < best[0]):
+                best = (widest, f"{a}\n{b}")
+        if best is not None:
+            return best[1]
+    return _shorten_middle(width, text, max_mm)
+
+
+def _wrap_measured(width, text: str, max_mm: float) -> list[str]:
+    """Greedy word wrap on measured widths (a word longer than the line stays whole)."""
+    lines, line = [], ""
+    for word in str(text).split():
+        trial = f"{line} {word}".strip()
+        if line and width(trial) > max_mm:
+            lines.append(line)
+            line = word
+        else:
+            line = trial
+    return lines + [line] if line else lines
+
+
+def _split_even(text: str) -> str:
+    """Two lines split at the space nearest the middle (upright category labels)."""
+    words = text.split(" ")
+    if len(words) < 2:
+        return text
+    cut = min(range(1, len(words)), key=lambda k: abs(len(" ".join(words[:k])) - len(" ".join(words[k:]))))
+    return " ".join(words[:cut]) + "\n" + " ".join(words[cut:])
+
+
+# ---------------------------------------------------------------------------- colours and keys
 
 def _colour_setup(spec: FigureSpec, data: FigureData, ctx: Context) -> str | None:
     """Decide the colour mapping and which key the figure needs: 'categories', 'bar' or None."""
@@ -54,19 +266,27 @@ def _colour_setup(spec: FigureSpec, data: FigureData, ctx: Context) -> str | Non
     return "bar" if drawer.colour_bar else None
 
 
+def _legend_size(ctx: Context, spec: FigureSpec, ncol: int = 1) -> tuple[float, float]:
+    """Width and height (mm) of the categorical legend with ``ncol`` columns, measured by drawing
+    it once on a scratch figure, so long labels are never clipped."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    pt = spec.style.tick_pt
+    scratch = Figure(figsize=(8, 8), dpi=72)
+    FigureCanvasAgg(scratch)
+    leg = scratch.legend(handles=_legend_handles(ctx, spec), title=ctx.colour_title, ncol=ncol,
+                         fontsize=pt, title_fontsize=pt, borderpad=0, borderaxespad=0,
+                         columnspacing=1.0, alignment="left")
+    bb = leg.get_window_extent(scratch.canvas.get_renderer())
+    return bb.width / 72 * 25.4, bb.height / 72 * 25.4
+
+
 def _legend_width(kind: str | None, ctx: Context, spec: FigureSpec) -> float:
-    """Width (mm) to reserve for the key beside the grid.  A categorical legend is measured by
-    drawing it once on a scratch figure, so long labels are never clipped."""
+    """Width (mm) to reserve for the key beside the grid (a colour bar's is widened later if its
+    drawn labels need more)."""
     pt = spec.style.tick_pt
     if kind == "categories":
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-        from matplotlib.figure import Figure
-        scratch = Figure(figsize=(4, 4), dpi=72)
-        FigureCanvasAgg(scratch)
-        leg = scratch.legend(handles=_legend_handles(ctx, spec), title=ctx.colour_title,
-                             fontsize=pt, title_fontsize=pt, borderpad=0, borderaxespad=0)
-        width = leg.get_window_extent(scratch.canvas.get_renderer()).width / 72 * 25.4
-        return width + 1.0
+        return _legend_size(ctx, spec)[0] + 1.0
     if kind == "bar":
         return 3.0 + 1.0 + _text_width_mm("00000", pt) + 3.5
     return 0.0
@@ -82,78 +302,23 @@ def _legend_handles(ctx: Context, spec: FigureSpec) -> list:
             for level, hexc in ctx.colours.items()]
 
 
-def _margins(spec: FigureSpec, *, titles: bool, ytick_w: float, xtick_h: float,
-             legend_w: float, xtitle: bool, ytitle: bool) -> L.Margins:
+def _margins(spec: FigureSpec, *, title_lines: int, ytick_w: float, xtick_h: float,
+             legend_w: float, xtitle_lines: int, ytitle_lines: int) -> L.Margins:
     st = spec.style
     line = L.text_mm(st.base_pt)
+    tick = _tick_mm(spec)
     free_x = spec.scales in ("free", "free-x")
     free_y = spec.scales in ("free", "free-y")
     header = L.text_mm(st.title_pt) * 2 + 1.2 if spec.grid else 0.0
     return L.Margins(
-        left=(line + 0.8 if ytitle else 0.6) + ytick_w + TICK_MM + 0.3,
-        right=1.2 + legend_w + (header if spec.grid else 0.0),
+        left=(line * ytitle_lines + 0.8 if ytitle_lines else 0.6) + ytick_w + tick + 0.3,
+        right=1.2 + legend_w + header,
         top=0.8 + header,
-        bottom=(line + 0.6 if xtitle else 0.6) + xtick_h + TICK_MM,
-        title=L.text_mm(st.title_pt) + 0.9 if titles else 0.0,
-        hgap=st.gap_mm + (ytick_w + TICK_MM if free_y else 0.0),
-        vgap=st.gap_mm * 0.8 + (xtick_h + TICK_MM if free_x else 0.0),
+        bottom=(line * xtitle_lines + 0.6 if xtitle_lines else 0.6) + xtick_h + tick,
+        title=L.text_mm(st.title_pt, title_lines) + 0.9 if title_lines else 0.0,
+        hgap=st.gap_mm + (ytick_w + tick if free_y else 0.0),
+        vgap=st.gap_mm * 0.8 + (xtick_h + tick if free_x else 0.0),
     )
-
-
-def _measure(fig, axes, which: str, visible) -> float:
-    """Largest extent (mm) of the tick labels actually drawn: width for 'y', height for 'x'."""
-    renderer = fig.canvas.get_renderer()
-    best = 0.0
-    for ax, show in zip(axes, visible):
-        if not show:
-            continue
-        axis = ax.yaxis if which == "y" else ax.xaxis
-        labels = axis.get_ticklabels()
-        ax.xaxis.get_tightbbox(renderer) if which == "x" else ax.yaxis.get_tightbbox(renderer)
-        for t in labels:
-            if t.get_visible() and t.get_text():
-                bb = t.get_window_extent(renderer)
-                size = bb.width if which == "y" else bb.height
-                best = max(best, size / fig.dpi * 25.4)
-    return best
-
-
-def _right_overhang(fig, axes, visible) -> float:
-    """How far (mm) x tick labels reach past the right edge of their panel column's right end."""
-    renderer = fig.canvas.get_renderer()
-    width = fig.bbox.width
-    worst = 0.0
-    for ax, show in zip(axes, visible):
-        if not show:
-            continue
-        ax.xaxis.get_tightbbox(renderer)
-        for t in ax.get_xticklabels():
-            if t.get_visible() and t.get_text():
-                bb = t.get_window_extent(renderer)
-                panel_right = ax.get_position().x1 * width
-                worst = max(worst, (bb.x1 - panel_right) / fig.dpi * 25.4)
-    return worst
-
-
-def _rotate_if_crowded(fig, axes, visible) -> bool:
-    """Tilt categorical x labels that would touch their neighbours (measured, not guessed)."""
-    renderer = fig.canvas.get_renderer()
-    crowded = False
-    for ax, show in zip(axes, visible):
-        if not show:
-            continue
-        ax.xaxis.get_tightbbox(renderer)
-        boxes = [t.get_window_extent(renderer) for t in ax.get_xticklabels() if t.get_text()]
-        for a, b in zip(boxes, boxes[1:]):
-            if a.x1 + 1 > b.x0:
-                crowded = True
-    if crowded:
-        for ax in axes:
-            for t in ax.get_xticklabels():
-                t.set_rotation(35)
-                t.set_ha("right")
-                t.set_rotation_mode("anchor")
-    return crowded
 
 
 def _panel_title(panel, spec: FigureSpec) -> str:
@@ -167,54 +332,68 @@ def _panel_title(panel, spec: FigureSpec) -> str:
     return str(value)
 
 
-def _wrap(text: str, width_mm: float, pt: float) -> list[str]:
-    """Greedy word wrap to an estimated width (planning estimate, see _text_width_mm)."""
-    lines, line = [], ""
-    for word in str(text).split():
-        trial = f"{line} {word}".strip()
-        if line and _text_width_mm(trial, pt) > width_mm:
-            lines.append(line)
-            line = word
+def _count_label(v, _pos=None) -> str:
+    """Tick label of a log count scale as a plain number (no exponents in small print)."""
+    return f"{v:.0f}" if v >= 1 else f"{v:g}"
+
+
+def _pin_ticks(fig) -> None:
+    """Pin every axis to the ticks and labels it draws now, and blank the labels of ticks it does
+    not draw.  The figure then redraws the same whatever rcParams are active later (a notebook
+    draws outside the house style) and holds no text that is not drawn."""
+    from matplotlib.ticker import FixedFormatter, FixedLocator
+    # Read everything first: shared axes share one locator, so pinning one changes the others.
+    plan = []
+    for ax in fig.axes:
+        for axis in (ax.xaxis, ax.yaxis):
+            for major in (True, False):
+                locs, ticks = _ticks_now(axis, major)
+                keep = _in_view(axis, locs)
+                labels = [t.label1.get_text() for t, k in zip(ticks, keep) if k]
+                offset = axis.get_major_formatter().get_offset() if major else ""
+                plan.append((axis, major, locs[keep], labels, offset))
+    for axis, major, locs, labels, offset in plan:
+        fixed = FixedFormatter(labels)
+        fixed.set_offset_string(offset)
+        if major:
+            axis.set_major_locator(FixedLocator(locs))
+            axis.set_major_formatter(fixed)
         else:
-            line = trial
-    return lines + [line] if line else lines
+            axis.set_minor_locator(FixedLocator(locs))
+            axis.set_minor_formatter(fixed)
+        for t in (axis.majorTicks if major else axis.minorTicks)[len(locs):]:
+            t.label1.set_text("")
+            t.label2.set_text("")
+        _ticks_now(axis, major)
 
 
-def _shorten(fig, text_artist, max_mm: float) -> None:
-    """Shorten a title with an ellipsis until it fits ``max_mm`` (never overlaps its neighbour)."""
-    renderer = fig.canvas.get_renderer()
-    text = text_artist.get_text()
-    while text and text_artist.get_window_extent(renderer).width / fig.dpi * 25.4 > max_mm:
-        text = text[:-2] if len(text) > 2 else ""
-        text_artist.set_text(text.rstrip() + "…")
-        if len(text) <= 2:
-            break
-
+# ---------------------------------------------------------------------------- the figure
 
 def build_figure(spec: FigureSpec, data: FigureData):
     """Draw the figure; returns (figure, record) where record holds layout and per-panel numbers."""
-    import matplotlib.pyplot as plt
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
     st = spec.style
     panels = data.panels
+    n = len(panels)
     ctx = Context(spec=spec, data=data, panel_mm=(40.0, 30.0))
     key = _colour_setup(spec, data, ctx)
-    if spec.chart.name == "scatter":
-        # Bins may be chosen from the density; then a colour bar is needed too.
-        pass
     xtitle = bool(spec.x)
     ytitle = spec.chart.y is not None or spec.chart.name in ("histogram", "density", "count-bars", "shares")
     titles = len(spec.strata) == 1
+    tick = _tick_mm(spec)
 
     est_y = max(_text_width_mm("0000", st.tick_pt), 5.0)
     if spec.chart.y == "categorical":
         est_y = max(_text_width_mm(str(v), st.tick_pt) for v in data.levels.get(spec.y, ["x"]))
     est_x = L.text_mm(st.tick_pt)
+    # Lines given to panel titles and axis titles; grown when the measured text needs two.
+    lines = {"title": 1 if titles else 0, "x": 1 if xtitle else 0, "y": 1 if ytitle else 0}
 
     def margins(legend_w, ytick_w=est_y, xtick_h=est_x):
-        return _margins(spec, titles=titles, ytick_w=ytick_w, xtick_h=xtick_h, legend_w=legend_w,
-                        xtitle=xtitle, ytitle=ytitle)
+        return _margins(spec, title_lines=lines["title"], ytick_w=ytick_w, xtick_h=xtick_h,
+                        legend_w=legend_w, xtitle_lines=lines["x"], ytitle_lines=lines["y"])
 
     def pick(m):
         try:
@@ -223,7 +402,7 @@ def build_figure(spec: FigureSpec, data: FigureData):
                 return L.fixed_grid(len(rl), len(cl), spec.width_mm, m, aspect=st.panel_aspect,
                                     min_panel_mm=st.panel_min_mm, max_height_mm=st.max_height_mm,
                                     height_mm=spec.height_mm)
-            return L.choose_grid(len(panels), spec.width_mm, m, min_panel_mm=st.panel_min_mm,
+            return L.choose_grid(n, spec.width_mm, m, min_panel_mm=st.panel_min_mm,
                                  aspect=st.panel_aspect, max_height_mm=st.max_height_mm,
                                  columns=spec.columns, height_mm=spec.height_mm)
         except FigkitError as exc:
@@ -250,14 +429,13 @@ def build_figure(spec: FigureSpec, data: FigureData):
     m = margins(0.0 if in_cell or key is None else legend_w)
     height = spec.height_mm or L.grid_height(grid.rows, grid.panel_h, m)
     fig = Figure(figsize=(mm_to_in(spec.width_mm), mm_to_in(height)), dpi=72)
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
     FigureCanvasAgg(fig)
 
     share_x = spec.scales in ("shared", "free-y")
     share_y = spec.scales in ("shared", "free-x")
     axes, records = [], []
     first = None
-    for i, panel in enumerate(panels):
+    for _ in panels:
         ax = fig.add_axes((0, 0, 0.1, 0.1), sharex=first if share_x else None,
                           sharey=first if share_y else None)
         first = first or ax
@@ -295,36 +473,121 @@ def build_figure(spec: FigureSpec, data: FigureData):
             if spec.chart.x == "categorical":
                 ax.grid(False, axis="x")
 
-    # Tick labels only on the outer panels when an axis is shared.
-    n = len(panels)
-    rows_cols = [(i // grid.cols, i % grid.cols) for i in range(n)]
-    show_x = [not share_x or L.below_empty(grid, i) for i in range(n)]
-    show_y = [not share_y or c == 0 for (_, c) in rows_cols]
-    for ax, sx, sy in zip(axes, show_x, show_y):
-        ax.tick_params(labelbottom=sx, labelleft=sy)
-
-    # Measure what was drawn and place everything again: twice, since the ticks chosen depend
-    # on the panel size; then once more if categorical labels had to be tilted.
-    crowded = False
+    category_texts = [str(v) for v in ctx.shared.get("xlevels", [])]
+    label_step = 0
     legend_room = 0.0 if in_cell or key is None else legend_w
-    for step in range(3):
-        if step == 2:
-            crowded = spec.chart.x == "categorical" and _rotate_if_crowded(fig, axes, show_x)
-            if not crowded:
-                break
-        ytick_w = _measure(fig, axes, "y", show_y)
-        xtick_h = _measure(fig, axes, "x", show_x)
-        overhang = _right_overhang(fig, axes, show_x)
-        m = margins(legend_room, ytick_w, xtick_h)
-        if overhang > m.right:
-            m = replace(m, right=overhang + 0.3)
-        grid = pick(m)
-        height = spec.height_mm or L.grid_height(grid.rows, grid.panel_h, m)
-        fig.set_size_inches(mm_to_in(spec.width_mm), mm_to_in(height))
+    state = {}
+
+    def apply(g: L.Grid, mm: L.Margins) -> None:
+        """Size the canvas and place every panel for grid ``g``; tick labels only on the outer
+        panels when an axis is shared (the rule follows the grid, which may change)."""
+        h = spec.height_mm or L.grid_height(g.rows, g.panel_h, mm)
+        fig.set_size_inches(mm_to_in(spec.width_mm), mm_to_in(h))
         for i, ax in enumerate(axes):
-            l, b, w, h = L.panel_box(grid, i, m, height)
-            ax.set_position((l / spec.width_mm, b / height, w / spec.width_mm, h / height))
-    W, H = spec.width_mm, height
+            ax.tick_params(labelbottom=not share_x or L.below_empty(g, i),
+                           labelleft=not share_y or i % g.cols == 0)
+            l, b, w, hh = L.panel_box(g, i, mm, h)
+            ax.set_position((l / spec.width_mm, b / h, w / spec.width_mm, hh / h))
+        state.update(grid=g, m=mm, H=h, xlines=lines["x"])
+
+    def settle() -> None:
+        """Measure the tick labels drawn, choose the grid again and re-place, until nothing moves.
+        After two rounds measurements may only grow, so the loop cannot swing."""
+        yw = xh = 0.0
+        before = None
+        for it in range(8):
+            yw_now, xh_now = _measure(fig, axes, "y"), _measure(fig, axes, "x")
+            yw, xh = (max(yw, yw_now), max(xh, xh_now)) if it >= 2 else (yw_now, xh_now)
+            mm = margins(legend_room, yw, xh)
+            if "grid" in state:
+                over = _right_overhang(fig, axes, state["grid"])
+                if over + EDGE_MM > mm.right:
+                    mm = replace(mm, right=over + EDGE_MM)
+            g = pick(mm)
+            now = (g.rows, g.cols, tuple(round(v, 2) for v in vars(mm).values()))
+            apply(g, mm)
+            if now == before:
+                break
+            before = now
+        state.update(ytick_w=yw, xtick_h=xh)
+
+    def set_category_labels(step: int) -> None:
+        angle, two = LABEL_STEPS[step]
+        texts = [_split_even(t) if two and len(t) > WRAP_CHARS else t for t in category_texts]
+        for ax in axes:
+            ax.set_xticks(range(len(texts)), texts)
+            for t in ax.get_xticklabels():
+                if angle == 0:
+                    t.set(rotation=0, ha="center", va="top", rotation_mode="default", multialignment="center")
+                else:
+                    t.set(rotation=angle, ha="right", va="center" if angle == 90 else "top",
+                          rotation_mode="anchor", multialignment="right")
+
+    title_texts = [_panel_title(p, spec) for p in panels] if titles else []
+    bold = _measurer(fig, st.title_pt, "bold")
+    plain = _measurer(fig, st.base_pt)
+
+    def relayout() -> None:
+        """Settle the grid, then grow titles to two lines or rearrange crowded category labels
+        where measurement says so, settling again after each change (changes only go forward)."""
+        nonlocal label_step
+        for _ in range(12):
+            settle()
+            g, mm, h = state["grid"], state["m"], state["H"]
+            if titles and lines["title"] == 1 and any(
+                    "\n" in _fit_text(bold, t, g.panel_w, 2) for t in title_texts):
+                lines["title"] = 2
+                continue
+            boxes = [L.panel_box(g, i, mm, h) for i in range(n)]
+            span_w = max(b[0] + b[2] for b in boxes) - min(b[0] for b in boxes)
+            span_h = max(b[1] + b[3] for b in boxes) - min(b[1] for b in boxes)
+            if xtitle and lines["x"] == 1 and "\n" in _fit_text(plain, spec.axis_title(spec.x), span_w, 2):
+                lines["x"] = 2
+                continue
+            if ytitle and lines["y"] == 1 and "\n" in _fit_text(plain, _y_title(spec), span_h, 2):
+                lines["y"] = 2
+                continue
+            if category_texts and spec.chart.x == "categorical":
+                gap = LABEL_GAP_MM if LABEL_STEPS[label_step][0] == 0 else 0.0
+                if label_step < len(LABEL_STEPS) - 1 and _x_labels_clash(fig, axes, gap):
+                    label_step += 1
+                    while (LABEL_STEPS[label_step][1] and label_step < len(LABEL_STEPS) - 1 and
+                           not any(" " in t and len(t) > WRAP_CHARS for t in category_texts)):
+                        label_step += 1   # nothing to put on two lines: skip that arrangement
+                    set_category_labels(label_step)
+                    continue
+            break
+
+    if category_texts and spec.chart.x == "categorical":
+        set_category_labels(0)
+    relayout()
+
+    # The key: drawn, checked against the canvas, the panels and every other text; moved beside
+    # the grid (in-cell) or given more room (beside) when it does not fit.
+    key_artists: list = []
+    for _attempt in range(4):
+        if key is None:
+            break
+        if in_cell and state["grid"].empty_cells == 0:
+            in_cell, legend_room = False, legend_w
+            relayout()
+        key_artists = _place_key(fig, key, ctx, spec, state, in_cell, axes, tick)
+        problem = _key_problem(fig, key_artists, axes)
+        if problem is None:
+            break
+        for a in key_artists:
+            a.remove()
+        key_artists = []
+        if in_cell:
+            in_cell, legend_room = False, legend_w
+        else:
+            legend_room += max(problem, 1.0)
+        relayout()
+    grid, m, H = state["grid"], state["m"], state["H"]
+    W = spec.width_mm
+    if key is not None and not key_artists:   # pragma: no cover - every attempt failed
+        key_artists = _place_key(fig, key, ctx, spec, state, in_cell, axes, tick)
+        ctx.cautions.append("the colour key could not be placed clear of other text")
 
     def fx(mm):
         return mm / W
@@ -332,79 +595,91 @@ def build_figure(spec: FigureSpec, data: FigureData):
     def fy(mm):
         return mm / H
 
-    # Panel titles (wrapped) or row/column headers (two-way grid), in our own look: left-aligned
+    # Panel titles (fitted) or row/column headers (two-way grid), in our own look: left-aligned
     # titles over a hairline rule for wrapped panels; headers with a rule for grids.
+    shown_titles = []
     if titles:
-        for i, (ax, panel) in enumerate(zip(axes, panels)):
+        for i, text in enumerate(title_texts):
             l, b, w, h = L.panel_box(grid, i, m, H)
-            t = fig.text(fx(l), fy(b + h + 0.55), _panel_title(panel, spec), fontsize=st.title_pt,
-                         fontweight="bold", ha="left", va="bottom")
-            _shorten(fig, t, w)
+            fitted = _fit_text(bold, text, w, lines["title"])
+            shown_titles.append(fitted)
+            fig.text(fx(l), fy(b + h + 0.55), fitted, fontsize=st.title_pt, fontweight="bold",
+                     ha="left", va="bottom", linespacing=1.1)
             fig.add_artist(_rule(fig, fx(l), fx(l + w), fy(b + h + 0.35)))
     if spec.grid:
         rf, cf = spec.strata
         rl, cl = data.grid_levels
+        title_w = _measurer(fig, st.title_pt)
         l0, b0, w0, h0 = L.panel_box(grid, 0, m, H)
         top_of_grid = b0 + h0
         for j, cv in enumerate(cl):
             l, b, w, h = L.panel_box(grid, j, m, H)
-            t = fig.text(fx(l + w / 2), fy(top_of_grid + 0.6), str(cv), fontsize=st.title_pt,
-                         ha="center", va="bottom")
-            _shorten(fig, t, w)
+            fig.text(fx(l + w / 2), fy(top_of_grid + 0.6), _shorten_middle(title_w, str(cv), w),
+                     fontsize=st.title_pt, ha="center", va="bottom")
             fig.add_artist(_rule(fig, fx(l), fx(l + w), fy(top_of_grid + 0.4)))
         lw0, _, ww, _ = L.panel_box(grid, 0, m, H)
         lw1, _, _, _ = L.panel_box(grid, grid.cols - 1, m, H)
         fig.text(fx((lw0 + lw1 + ww) / 2), fy(top_of_grid + 0.6 + L.text_mm(st.title_pt) + 0.3),
-                 spec.labels.get(cf, (cf, ""))[0], fontsize=st.title_pt, fontweight="bold",
-                 ha="center", va="bottom")
+                 _shorten_middle(bold, spec.labels.get(cf, (cf, ""))[0], lw1 + ww - lw0),
+                 fontsize=st.title_pt, fontweight="bold", ha="center", va="bottom")
         right_edge = None
         for i, rv in enumerate(rl):
             l, b, w, h = L.panel_box(grid, i * grid.cols + grid.cols - 1, m, H)
             right_edge = l + w
-            fig.text(fx(l + w + 0.6), fy(b + h / 2), str(rv), fontsize=st.title_pt,
-                     rotation=270, ha="center", va="bottom", rotation_mode="anchor")
+            fig.text(fx(l + w + 0.6), fy(b + h / 2), _shorten_middle(title_w, str(rv), h),
+                     fontsize=st.title_pt, rotation=270, ha="center", va="bottom",
+                     rotation_mode="anchor")
             fig.add_artist(_rule(fig, fx(l + w + 0.4), fx(l + w + 0.4), fy(b), fy(b + h)))
         lb = L.panel_box(grid, (grid.rows - 1) * grid.cols, m, H)
         mid = (lb[1] + top_of_grid) / 2
         fig.text(fx(right_edge + 0.6 + L.text_mm(st.title_pt) + 0.3), fy(mid),
-                 spec.labels.get(rf, (rf, ""))[0], fontsize=st.title_pt, fontweight="bold",
-                 rotation=270, ha="center", va="bottom", rotation_mode="anchor")
+                 _shorten_middle(bold, spec.labels.get(rf, (rf, ""))[0], top_of_grid - lb[1]),
+                 fontsize=st.title_pt, fontweight="bold", rotation=270, ha="center", va="bottom",
+                 rotation_mode="anchor")
+        title_w.close()
 
     # One x title and one y title for the whole figure, with units.
-    lefts = [L.panel_box(grid, i, m, H) for i in range(n)]
-    gx0 = min(b[0] for b in lefts)
-    gx1 = max(b[0] + b[2] for b in lefts)
-    gy0 = min(b[1] for b in lefts)
-    gy1 = max(b[1] + b[3] for b in lefts)
+    boxes = [L.panel_box(grid, i, m, H) for i in range(n)]
+    gx0 = min(b[0] for b in boxes)
+    gx1 = max(b[0] + b[2] for b in boxes)
+    gy0 = min(b[1] for b in boxes)
+    gy1 = max(b[1] + b[3] for b in boxes)
     if xtitle:
-        fig.text(fx((gx0 + gx1) / 2), fy(0.5), spec.axis_title(spec.x), fontsize=st.base_pt,
-                 ha="center", va="bottom")
+        fig.text(fx((gx0 + gx1) / 2), fy(0.5), _fit_text(plain, spec.axis_title(spec.x), gx1 - gx0, lines["x"]),
+                 fontsize=st.base_pt, ha="center", va="bottom", linespacing=1.1)
     if ytitle:
         # Anchored before rotation: the text's top (its left side once turned) sits at 0.5 mm.
-        fig.text(fx(0.5), fy((gy0 + gy1) / 2), _y_title(spec), fontsize=st.base_pt, rotation=90,
-                 ha="center", va="top", rotation_mode="anchor")
+        fig.text(fx(0.5), fy((gy0 + gy1) / 2), _fit_text(plain, _y_title(spec), gy1 - gy0, lines["y"]),
+                 fontsize=st.base_pt, rotation=90, ha="center", va="top", rotation_mode="anchor",
+                 linespacing=1.1)
+    bold.close()
+    plain.close()
 
-    # Legend or colour bar.
-    if key is not None:
-        if in_cell:
-            c0 = grid.panels % grid.cols
-            l, b, w, h = L.panel_box(grid, (grid.rows - 1) * grid.cols + c0, m, H)
-            x0, ytop = l + 1.0, b + h + m.title - (xtick_h + TICK_MM if show_x else 0) * 0
-            # The empty cell's space starts below the x tick labels of the panel above it.
-            ytop = b + h + m.title - xtick_h - TICK_MM - 0.5
-            room_w = (grid.cols - c0) * (grid.panel_w + m.hgap) - m.hgap - 1.0
-        else:
-            x0 = gx1 + 1.2 + (L.text_mm(st.title_pt) * 2 + 1.2 if spec.grid else 0.0)
-            ytop, room_w = gy1, legend_w
-        _draw_key(fig, key, ctx, spec, x0, ytop, room_w, W, H, horizontal=in_cell)
+    notes = _fit_tile_numbers(fig, axes, ctx) if spec.chart.name == "tiles" else None
+    if notes:
+        ctx.cautions.append(notes)
+    _pin_ticks(fig)
+    from .checks import text_collisions
+    fig.draw_without_rendering()   # legends place their texts only when drawn
+    clashes = text_collisions(fig)
+    if clashes:
+        a, b = clashes[0]
+        ctx.cautions.append(f"{len(clashes)} text overlap(s) remain, e.g. '{a[:30]}' / '{b[:30]}'; "
+                            "try a wider size preset or fewer panel columns")
 
+    angle, two = LABEL_STEPS[label_step]
     record = {
         "size_mm": [round(W, 3), round(H, 3)],
         "layout": {"rows": grid.rows, "cols": grid.cols, "panels": n,
                    "panel_mm": [round(grid.panel_w, 2), round(grid.panel_h, 2)],
                    "empty_cells": grid.empty_cells, "key": key,
                    "key_place": None if key is None else ("empty cell" if in_cell else "right"),
-                   "x_labels_tilted": bool(spec.chart.x == "categorical" and crowded)},
+                   "x_labels_tilted": bool(category_texts and angle != 0),
+                   "x_label_angle": angle if category_texts else 0,
+                   "x_labels_two_lines": bool(category_texts and two),
+                   "title_lines": lines["title"],
+                   "titles_shortened": sum(ELLIPSIS in t and ELLIPSIS not in s
+                                           for t, s in zip(shown_titles, title_texts))},
         "panel_records": records,
         "colours": ctx.used_colours,
         "cautions": ctx.cautions,
@@ -430,35 +705,126 @@ def _rule(fig, x0, x1, y0, y1=None):
                   color=HEADER_RULE, linewidth=0.4)
 
 
-def _draw_key(fig, key, ctx: Context, spec: FigureSpec, x0, ytop, room_w, W, H, horizontal):
+def _fit_tile_numbers(fig, axes, ctx: Context) -> str | None:
+    """Counts printed in tiles must fit their tile; when one does not, none is printed (a
+    partial set would read as missing values) and the caution says so."""
+    texts = ctx.shared.get("tile_texts") or []
+    nx, ny = len(ctx.shared.get("xlevels", [])), len(ctx.shared.get("ylevels", []))
+    if not texts or not nx or not ny:
+        return None
+    renderer = fig.canvas.get_renderer()
+    cell_w = min(ax.bbox.width for ax in axes) / nx
+    cell_h = min(ax.bbox.height for ax in axes) / ny
+    pad = 0.4 / 25.4 * fig.dpi
+    for t in texts:
+        bb = t.get_window_extent(renderer)
+        if bb.width > cell_w - pad or bb.height > cell_h - pad:
+            for u in texts:
+                u.set_visible(False)
+            return (f"tile counts not printed: tiles of {_mm(fig, cell_w):.1f} x {_mm(fig, cell_h):.1f} mm "
+                    f"are too small for {ctx.spec.style.tick_pt:g} pt numbers")
+    return None
+
+
+def _place_key(fig, key, ctx: Context, spec: FigureSpec, state: dict, in_cell: bool, axes, tick) -> list:
+    """Draw the legend or colour bar; returns the artists added (removable)."""
     st = spec.style
+    grid, m, H = state["grid"], state["m"], state["H"]
+    W = spec.width_mm
+    boxes = [L.panel_box(grid, i, m, H) for i in range(grid.panels)]
+    gx1 = max(b[0] + b[2] for b in boxes)
+    gy1 = max(b[1] + b[3] for b in boxes)
+    bottom_limit = 0.5 + L.text_mm(st.base_pt, state["xlines"]) + 0.3
+    if in_cell:
+        c0 = grid.panels % grid.cols
+        l, b, w, h = L.panel_box(grid, (grid.rows - 1) * grid.cols + c0, m, H)
+        x0 = l + 1.0
+        # The empty cell's space starts below the x tick labels of the panel above it.
+        ytop = b + h + m.title + (m.vgap - state["xtick_h"] - tick - 0.5 if grid.rows > 1 else 0.0)
+        room_w, room_h = gx1 - x0, ytop - bottom_limit
+    else:
+        x0 = gx1 + 1.2 + (L.text_mm(st.title_pt) * 2 + 1.2 if spec.grid else 0.0)
+        ytop, room_w, room_h = gy1, W - x0 - EDGE_MM, gy1 - EDGE_MM
+    pt = st.tick_pt
     if key == "categories":
         handles = _legend_handles(ctx, spec)
         ncol = 1
-        if horizontal:
-            per = max(_text_width_mm(str(k), st.tick_pt) for k in ctx.colours) + 5
-            ncol = max(1, min(len(handles), int(room_w // per)))
-        fig.legend(handles=handles, title=ctx.colour_title, loc="upper left",
-                   bbox_to_anchor=(x0 / W, ytop / H), bbox_transform=fig.transFigure, ncol=ncol,
-                   fontsize=st.tick_pt, title_fontsize=st.tick_pt, alignment="left",
-                   borderaxespad=0, borderpad=0, columnspacing=1.0)
-        return
+        if in_cell:
+            fits = [k for k in range(len(handles), 0, -1)
+                    if all(a <= b for a, b in zip(_legend_size(ctx, spec, k), (room_w, room_h)))]
+            ncol = fits[0] if fits else 1
+        leg = fig.legend(handles=handles, title=ctx.colour_title, loc="upper left",
+                         bbox_to_anchor=(x0 / W, ytop / H), bbox_transform=fig.transFigure, ncol=ncol,
+                         fontsize=pt, title_fontsize=pt, alignment="left",
+                         borderaxespad=0, borderpad=0, columnspacing=1.0)
+        return [leg]
     import matplotlib.cm as cm
-    mappable = ctx.mappables[0] if ctx.mappables else cm.ScalarMappable(norm=ctx.norm, cmap=ctx.cmap)
-    if horizontal:
-        bw = min(room_w, 40.0)
-        title_h = L.text_mm(st.tick_pt)
-        cax = fig.add_axes(((x0) / W, (ytop - title_h - 0.5 - 2.2) / H, bw / W, 2.2 / H))
+    import matplotlib.colors as mcolors
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+    # The bar shows the colour scale itself: opaque, even when the marks are translucent.
+    source = ctx.mappables[0] if ctx.mappables else None
+    mappable = cm.ScalarMappable(norm=source.norm if source is not None else ctx.norm,
+                                 cmap=source.get_cmap() if source is not None else ctx.cmap)
+    label_h = L.text_mm(pt)
+    measure = _measurer(fig, pt)
+    if in_cell:
+        # Inset by half the widest end label so the labels under the bar stay in the cell.
+        inset = measure("00000") / 2
+        bw = max(10.0, min(room_w - 2 * inset, 40.0))
+        title = _shorten_middle(measure, ctx.colour_title, room_w)
+        cax = fig.add_axes(((x0 + inset) / W, (ytop - label_h - 0.5 - 2.2) / H, bw / W, 2.2 / H),
+                           label="<colorbar>")   # matplotlib's own name for a colour-bar axes
         bar = fig.colorbar(mappable, cax=cax, orientation="horizontal")
-        fig.text(x0 / W, (ytop - title_h) / H, ctx.colour_title, fontsize=st.tick_pt, ha="left",
-                 va="bottom")
+        text = fig.text(x0 / W, (ytop - label_h) / H, title, fontsize=pt, ha="left", va="bottom")
     else:
-        lines = _wrap(ctx.colour_title, room_w, st.tick_pt)
-        title_h = L.text_mm(st.tick_pt, len(lines)) + 0.8
+        lines = _wrap_measured(measure, ctx.colour_title, room_w)
+        # The top tick label reaches half a line above the bar: keep it clear of the title.
+        title_h = L.text_mm(pt, len(lines)) + 0.6 + label_h / 2
         bh = min(35.0, max(12.0, ytop - title_h - 8))
-        cax = fig.add_axes((x0 / W, (ytop - title_h - bh) / H, 2.4 / W, bh / H))
+        cax = fig.add_axes((x0 / W, (ytop - title_h - bh) / H, 2.4 / W, bh / H), label="<colorbar>")
         bar = fig.colorbar(mappable, cax=cax, orientation="vertical")
-        fig.text(x0 / W, ytop / H, "\n".join(lines), fontsize=st.tick_pt, ha="left", va="top",
-                 linespacing=1.1)
+        text = fig.text(x0 / W, ytop / H, "\n".join(lines), fontsize=pt, ha="left", va="top",
+                        linespacing=1.1)
+    measure.close()
+    norm = mappable.norm
+    if isinstance(norm, mcolors.LogNorm):
+        decades = np.log10(max(norm.vmax, 1.0) / max(norm.vmin, 1e-12))
+        bar.locator = LogLocator(base=10, subs=(1.0,) if decades >= 2 else (1.0, 2.0, 5.0))
+        bar.formatter = FuncFormatter(_count_label)
+        bar.minorformatter = NullFormatter()
     bar.outline.set_linewidth(0.4)
-    bar.ax.tick_params(labelsize=st.tick_pt, width=0.4, length=1.5)
+    # Edges between colour steps are not drawn; the empty divider set would still count as a
+    # (too thin) line in the house minimum check.
+    bar.dividers.set_visible(False)
+    bar.ax.tick_params(labelsize=pt, width=0.4, length=1.5)
+    return [cax, text]
+
+
+def _key_problem(fig, artists: list, axes) -> float | None:
+    """None when the key's texts stay on the canvas, off the panels and clear of every other
+    text; else how far (mm) it reaches past the right edge (0 when it collides elsewhere)."""
+    renderer = fig.canvas.get_renderer()
+    own, own_boxes = [], []
+    for a in artists:
+        if hasattr(a, "get_texts"):
+            # A legend lays out its texts only when drawn: its own box stands for all of them.
+            own += [a.get_title(), *a.get_texts()]
+            own_boxes.append(a.get_window_extent(renderer))
+        elif hasattr(a, "xaxis"):
+            labels = _drawn_tick_labels(a.xaxis, renderer) + _drawn_tick_labels(a.yaxis, renderer)
+            own += labels
+            own_boxes += [t.get_window_extent(renderer) for t in labels] + [a.get_window_extent(renderer)]
+        else:
+            own.append(a)
+            own_boxes.append(a.get_window_extent(renderer))
+    right = max((b.x1 for b in own_boxes), default=0.0)
+    over = _mm(fig, right - fig.bbox.width) + EDGE_MM
+    if over > 0:
+        return over
+    ids = {id(t) for t in own}
+    others = [t.get_window_extent(renderer) for t in _drawn_texts(fig) if id(t) not in ids]
+    panels = [ax.get_window_extent(renderer) for ax in axes]
+    for b in own_boxes:
+        if _outside(fig, b) or any(_overlap(b, o) for o in others) or any(_overlap(b, p) for p in panels):
+            return 0.0
+    return None

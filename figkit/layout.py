@@ -58,24 +58,27 @@ def choose_grid(n: int, width_mm: float, m: Margins, *, min_panel_mm: float, asp
     figure fits under ``max_height_mm``, take the largest panels (fewest columns); among equal
     sizes the fewest empty cells.  ``rows = ceil(n / cols)`` so no row is ever wholly empty.  A
     fixed ``columns`` skips the search but not the checks.  With ``height_mm`` the panel height
-    follows from the height instead of the aspect.
+    follows from the height instead of the aspect; a panel's size is then
+    ``min(width, height / aspect)`` and panels must also be at least
+    ``0.75 * min_panel_mm * min(aspect, 1)`` tall (common practice).
     """
     if n < 1:
         raise FigkitError("a figure needs at least one panel", value=n)
     candidates = [columns] if columns else range(1, n + 1)
-    best, needed = None, None
+    best = None
     for cols in candidates:
-        rows = math.ceil(n / cols)
-        if columns is None and (rows - 1) * cols >= n:
-            continue  # would leave an empty row
+        rows = math.ceil(n / cols)   # the smallest row count: no row is ever wholly empty
         pw = panel_width(cols, width_mm, m)
+        if height_mm is not None and height_mm > max_height_mm + 1e-9:
+            raise FigkitError(f"height_mm {height_mm:g} is above the {max_height_mm:.0f} mm the style "
+                              "allows", field="height_mm", value=height_mm,
+                              allowed=f"at most {max_height_mm:.0f}")
         if height_mm is not None:
             ph = (height_mm - m.top - m.bottom - (rows - 1) * m.vgap) / rows - m.title
         else:
             ph = pw * aspect
         total = grid_height(rows, ph, m) if height_mm is None else height_mm
         if pw < min_panel_mm or ph < min_panel_mm * min(aspect, 1.0) * 0.75:
-            needed = needed or cols
             continue
         if total > max_height_mm + 1e-9:
             continue
@@ -83,18 +86,32 @@ def choose_grid(n: int, width_mm: float, m: Margins, *, min_panel_mm: float, asp
         if best is None or key < best[0]:
             best = (key, Grid(rows, cols, n, pw, ph))
     if best is None:
-        per_row = max(1, int((width_mm - m.left - m.right + m.hgap) // (min_panel_mm + m.hgap)))
-        rows = math.ceil(n / per_row)
-        need_h = grid_height(rows, min_panel_mm * aspect, m)
-        need_w = m.left + m.right + n * min_panel_mm + (n - 1) * m.hgap
         if columns:
             raise FigkitError(f"{columns} columns of {n} panels do not fit: panels would be "
                               f"{panel_width(columns, width_mm, m):.0f} mm wide at {width_mm:.0f} mm "
                               f"(minimum {min_panel_mm:.0f} mm) or the figure taller than "
                               f"{max_height_mm:.0f} mm", field="panel_columns", value=columns)
-        raise FigkitError(f"{n} panels need at least {min(need_h, need_w if rows == 1 else need_h):.0f} mm "
-                          f"at {min_panel_mm:.0f} mm per panel; the preset is {width_mm:.0f} mm wide "
-                          f"and figures may be {max_height_mm:.0f} mm tall", field="size",
+        # Name the sizes that clash: the most columns that keep panels wide enough, and the
+        # height those columns still need (the smallest height any allowed grid reaches).
+        most = max(1, min(n, int((width_mm - m.left - m.right + m.hgap) // (min_panel_mm + m.hgap))))
+        pw = panel_width(most, width_mm, m)
+        if pw < min_panel_mm:
+            raise FigkitError(f"panels would be {pw:.0f} mm wide in one column of a {width_mm:.0f} mm "
+                              f"preset ({m.left + m.right:.0f} mm go to margins); the minimum is "
+                              f"{min_panel_mm:.0f} mm", field="size",
+                              allowed="a wider size preset or a smaller panel minimum")
+        rows = math.ceil(n / most)
+        if height_mm is not None:
+            ph = (height_mm - m.top - m.bottom - (rows - 1) * m.vgap) / rows - m.title
+            raise FigkitError(f"{n} panels do not fit: at most {most} columns of {min_panel_mm:.0f} mm "
+                              f"panels fit the {width_mm:.0f} mm preset, and {rows} rows of them in "
+                              f"{height_mm:.0f} mm leave panels {ph:.0f} mm tall (minimum "
+                              f"{min_panel_mm * min(aspect, 1.0) * 0.75:.0f} mm)", field="height_mm",
+                              allowed="a larger height_mm, a wider size preset or fewer panels")
+        raise FigkitError(f"{n} panels do not fit: at most {most} columns of {min_panel_mm:.0f} mm "
+                          f"panels fit the {width_mm:.0f} mm preset, and {rows} rows of them need "
+                          f"{grid_height(rows, pw * aspect, m):.0f} mm of height; figures may be "
+                          f"{max_height_mm:.0f} mm tall", field="size",
                           allowed="a wider size preset, fewer panels, or a smaller panel minimum")
     return best[1]
 

@@ -848,3 +848,42 @@ def align_edges(edges: np.ndarray, resolution: float | None) -> np.ndarray:
     start = (math.floor(edges[0] / resolution + 1e-9) - 0.5) * resolution
     n = int(math.ceil((edges[-1] - start) / width - 1e-9))
     return start + width * np.arange(n + 1)
+
+
+def strata_slope_test_from_sums(sums: dict) -> StrataTest | None:
+    """The same interaction F-test as :func:`strata_slope_test`, from per-stratum centred sums
+    (:class:`LineSums`) alone — one pass over data of any size.
+
+    With S_k = (n_k, Sxx_k, Sxy_k, Syy_k) per stratum k (any linear-models text, e.g. the ANCOVA
+    chapter of Kutner et al. 2005):
+        RSS_full = sum_k (Syy_k - Sxy_k^2 / Sxx_k)                 (own slope per stratum)
+        b_w      = sum_k Sxy_k / sum_k Sxx_k                        (pooled within-stratum slope)
+        RSS_add  = sum_k Syy_k - (sum_k Sxy_k)^2 / sum_k Sxx_k      (common slope)
+        F = ((RSS_add - RSS_full) / (K - 1)) / (RSS_full / (N - 2K))
+    The crude slope comes from the merged sums.  Strata with n < 3 or constant x are excluded.
+    """
+    from scipy import stats as sps
+    usable = {k: s for k, s in sums.items() if s.n >= 3 and s.sxx > 0}
+    excluded = tuple(k for k in sums if k not in usable)
+    K = len(usable)
+    if K < 2:
+        return None
+    N = sum(s.n for s in usable.values())
+    sxx = sum(s.sxx for s in usable.values())
+    sxy = sum(s.sxy for s in usable.values())
+    syy = sum(s.syy for s in usable.values())
+    rss_full = sum(s.syy - s.sxy ** 2 / s.sxx for s in usable.values())
+    rss_add = syy - sxy ** 2 / sxx
+    df_num, df_den = K - 1, N - 2 * K
+    if df_den <= 0:
+        return None
+    if rss_full <= 0:
+        F, p = (math.inf, 0.0) if rss_add > 0 else (math.nan, math.nan)
+    else:
+        F = ((rss_add - rss_full) / df_num) / (rss_full / df_den)
+        p = float(sps.f.sf(F, df_num, df_den))
+    merged = None
+    for s in usable.values():
+        merged = s if merged is None else merged.merge(s)
+    return StrataTest(F=float(F), df_num=df_num, df_den=df_den, p=p, pooled_slope=sxy / sxx,
+                      crude_slope=merged.sxy / merged.sxx, n=N, n_strata=K, excluded=excluded)

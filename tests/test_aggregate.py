@@ -55,3 +55,32 @@ def test_tally_in_chunks_equals_whole():
     assert fit_c.slope == pytest.approx(fit_w.slope, rel=1e-10)
     assert fit_c.intercept == pytest.approx(fit_w.intercept, rel=1e-10)
     assert chunks.x_mean == pytest.approx(x.mean(), rel=1e-12)
+
+
+def test_strata_test_from_sums_equals_the_least_squares_version_and_anova_lm():
+    """Reference: statsmodels anova_lm comparing y ~ x + C(g) with y ~ x * C(g)."""
+    import pandas as pd
+    import statsmodels.formula.api as smf
+    from statsmodels.stats.anova import anova_lm
+    from figkit.stats import LineSums, strata_slope_test, strata_slope_test_from_sums
+    rng = np.random.default_rng(11)
+    g = np.repeat(["a", "b", "c", "d"], [300, 250, 400, 5])
+    slope = {"a": 0.5, "b": 0.6, "c": 0.4, "d": 0.5}
+    x = rng.normal(10, 3, g.size)
+    y = np.array([slope[k] for k in g]) * x + rng.normal(0, 1, g.size)
+    sums = {}
+    for k in ["a", "b", "c", "d"]:
+        m = g == k
+        for part in np.array_split(np.flatnonzero(m), 3):      # chunk by chunk
+            s = LineSums.of(x[part], y[part])
+            sums[k] = s if k not in sums else sums[k].merge(s)
+    fast = strata_slope_test_from_sums(sums)
+    direct = strata_slope_test(x, y, g)
+    assert fast.F == pytest.approx(direct.F, rel=1e-9)
+    assert fast.p == pytest.approx(direct.p, rel=1e-9)
+    assert (fast.df_num, fast.df_den) == (direct.df_num, direct.df_den)
+    assert fast.pooled_slope == pytest.approx(direct.pooled_slope, rel=1e-10)
+    assert fast.crude_slope == pytest.approx(direct.crude_slope, rel=1e-10)
+    df = pd.DataFrame({"x": x, "y": y, "g": g})
+    table = anova_lm(smf.ols("y ~ x + C(g)", df).fit(), smf.ols("y ~ x * C(g)", df).fit())
+    assert fast.F == pytest.approx(table["F"].iloc[1], rel=1e-7)
