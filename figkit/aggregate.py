@@ -95,11 +95,16 @@ class PanelTally:
     categories: dict = field(default_factory=dict)
     x_sum: float = 0.0
     y_sum: float = 0.0
+    x_min: float = math.inf
+    x_max: float = -math.inf
 
     def add_points(self, x: np.ndarray, y: np.ndarray | None, grid: HexGrid | None = None,
                    edges: np.ndarray | None = None) -> None:
         self.n += len(x)
         self.x_sum += float(np.sum(x))
+        if len(x):
+            self.x_min = min(self.x_min, float(np.min(x)))
+            self.x_max = max(self.x_max, float(np.max(x)))
         if y is not None:
             self.y_sum += float(np.sum(y))
             if len(x):

@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from . import stats
+from .aggregate import HexGrid
 from .data import FigureData, Panel
 from .spec import FigureSpec
 from .style import pt_to_mm
@@ -97,20 +98,25 @@ def draw_trend(ax, panel: Panel, ctx: Context, rec: dict) -> None:
     spec = ctx.spec
     if spec.trend == "none":
         return
-    x = panel.frame[spec.x].to_numpy(dtype=float)
-    y = panel.frame[spec.y].to_numpy(dtype=float)
     what = "straight-line fit" if spec.trend == "line" else "LOESS smoother"
-    if not _note_trend(ctx, panel, rec, what, len(x)):
+    tally = panel.tally
+    if tally is not None:       # streamed data: the line comes from the panel's one-pass sums
+        n, lo, hi = tally.n, tally.x_min, tally.x_max
+    else:
+        x = panel.frame[spec.x].to_numpy(dtype=float)
+        y = panel.frame[spec.y].to_numpy(dtype=float)
+        n, lo, hi = len(x), (x.min() if len(x) else 0.0), (x.max() if len(x) else 0.0)
+    if not _note_trend(ctx, panel, rec, what, n):
         return
-    if np.ptp(x) == 0:
+    if hi <= lo:
         rec.setdefault("notes", []).append(f"{what} not drawn: x is constant")
         return
     # Drawn only over the panel's own data range: a trend is never extrapolated.
-    grid = np.linspace(x.min(), x.max(), 120)
+    grid = np.linspace(lo, hi, 120)
     if spec.trend == "line":
-        fit = stats.fit_line(x, y)
-        yhat, lo, hi = stats.line_band(fit, grid)
-        ax.fill_between(grid, lo, hi, color=TREND, alpha=BAND_ALPHA, linewidth=0, zorder=3)
+        fit = tally.line.fit() if tally is not None else stats.fit_line(x, y)
+        yhat, band_lo, band_hi = stats.line_band(fit, grid)
+        ax.fill_between(grid, band_lo, band_hi, color=TREND, alpha=BAND_ALPHA, linewidth=0, zorder=3)
         ax.plot(grid, yhat, color=TREND, linewidth=0.9, zorder=4, solid_capstyle="butt")
         rec["trend"] = {"kind": "line", "slope": fit.slope, "intercept": fit.intercept,
                         "slope_ci": [fit.slope_ci_low, fit.slope_ci_high], "r": fit.r, "n": fit.n}
@@ -252,29 +258,49 @@ def draw_scatter(ax, panel: Panel, ctx: Context) -> dict:
 # ---------------------------------------------------------------------------- hexagonal bins
 
 def prepare_hexbins(ctx: Context) -> None:
+    """One hexagon lattice (extent and cell size) for every panel, so a cell means the same
+    everywhere; streamed data bring the lattice their counts were made on."""
     spec, panels = ctx.spec, ctx.data.panels
-    if "xlim" not in ctx.shared:
-        x, y = _values(panels, spec.x), _values(panels, spec.y)
-        ctx.shared["xlim"] = _padded(np.nanmin(x), np.nanmax(x)) if x.size else (0, 1)
-        ctx.shared["ylim"] = _padded(np.nanmin(y), np.nanmax(y)) if y.size else (0, 1)
+    streamed = getattr(ctx.data, "streamed", None)
+    if streamed and streamed.get("hex_grid"):
+        grid = HexGrid(*streamed["hex_grid"])
+        ctx.shared["xlim"], ctx.shared["ylim"] = (grid.xmin, grid.xmax), (grid.ymin, grid.ymax)
+    else:
+        if "xlim" not in ctx.shared:
+            x, y = _values(panels, spec.x), _values(panels, spec.y)
+            ctx.shared["xlim"] = _padded(np.nanmin(x), np.nanmax(x)) if x.size else (0, 1)
+            ctx.shared["ylim"] = _padded(np.nanmin(y), np.nanmax(y)) if y.size else (0, 1)
+        grid = HexGrid(*ctx.shared["xlim"], *ctx.shared["ylim"], int(spec.options.get("cells", 30)))
+    ctx.shared["hex_grid"] = grid
     ctx.shared["hex_collections"] = []
 
 
 def draw_hexbins(ax, panel: Panel, ctx: Context) -> dict:
+    """Counts per hexagon by integer cell index and one bincount (figkit.aggregate), drawn as one
+    collection of hexagons; no per-point artists."""
+    from matplotlib.collections import PolyCollection
+    from matplotlib.transforms import AffineDeltaTransform
+
     spec, sh = ctx.spec, ctx.shared
-    rec: dict = {"drawing": "bins"}
+    grid: HexGrid = sh["hex_grid"]
+    rec: dict = {"drawing": "bins", "cells_across": grid.nx}
     if not panel.n:
         return rec
-    x = panel.frame[spec.x].to_numpy(dtype=float)
-    y = panel.frame[spec.y].to_numpy(dtype=float)
-    # The same hexagon grid (extent and size) in every panel, so a cell means the same everywhere.
-    xl, yl = sh["xlim"], sh["ylim"]
-    cells = int(spec.options.get("cells", 30))
-    coll = ax.hexbin(x, y, gridsize=cells, extent=(*xl, *yl), mincnt=1, linewidths=0,
-                     cmap=ctx.cmap, rasterized=True, zorder=2)
+    if panel.tally is not None:
+        counts = panel.tally.hex_counts
+    else:
+        counts = grid.counts(panel.frame[spec.x].to_numpy(dtype=float),
+                             panel.frame[spec.y].to_numpy(dtype=float))
+    keep = counts >= 1
+    coll = PolyCollection([grid.hexagon()], offsets=grid.centres()[keep],
+                          offset_transform=AffineDeltaTransform(ax.transData), linewidths=0,
+                          cmap=ctx.cmap, rasterized=True, zorder=2)
+    coll.set_array(counts[keep].astype(float))
+    ax.add_collection(coll, autolim=False)
+    ax.set_xlim(*sh["xlim"])
+    ax.set_ylim(*sh["ylim"])
     sh["hex_collections"].append(coll)
-    counts = coll.get_array()
-    rec.update(cells_across=cells, max_count=int(counts.max()) if counts.size else 0)
+    rec.update(max_count=int(counts.max()) if counts.size else 0)
     draw_trend(ax, panel, ctx, rec)
     return rec
 
@@ -411,18 +437,24 @@ def prepare_histogram(ctx: Context) -> None:
     x = _values(panels, spec.x)
     rule = spec.options.get("bins", "fd")
     rule = int(float(rule)) if rule not in ("fd", "sturges") else rule
-    # Edges from the pooled data of every panel: the same bins everywhere (comparable panels).
-    edges = stats.bin_edges(x, rule) if x.size else np.linspace(0, 1, 11)
-    if isinstance(rule, str):   # a rule's width may move to the recorded grid; a given count stays
-        edges = stats.align_edges(edges, stats.data_resolution(x))
+    streamed = getattr(ctx.data, "streamed", None)
+    if streamed and streamed.get("bin_edges"):      # counted while streaming, on these edges
+        edges = np.asarray(streamed["bin_edges"])
+    else:
+        # Edges from the pooled data of every panel: the same bins everywhere (comparable panels).
+        edges = stats.bin_edges(x, rule) if x.size else np.linspace(0, 1, 11)
+        if isinstance(rule, str):   # a rule's width may move to the recorded grid; a count stays
+            edges = stats.align_edges(edges, stats.data_resolution(x))
     ctx.shared["edges"] = edges
     ctx.shared["bin_rule"] = rule
 
 
 def draw_histogram(ax, panel: Panel, ctx: Context) -> dict:
     spec, edges = ctx.spec, ctx.shared["edges"]
-    v = panel.frame[spec.x].to_numpy(dtype=float)
-    counts, _ = np.histogram(v, bins=edges)
+    if panel.tally is not None:
+        counts = panel.tally.hist_counts
+    else:
+        counts, _ = np.histogram(panel.frame[spec.x].to_numpy(dtype=float), bins=edges)
     colour = ctx.use(NEUTRAL)
     ax.stairs(counts, edges, fill=True, color=colour, alpha=0.85, zorder=2)
     ax.stairs(counts, edges, color="white", linewidth=0.3, zorder=3)

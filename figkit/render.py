@@ -63,12 +63,28 @@ def _stat_line(panel, spec: FigureSpec, x, y) -> dict:
     return rec
 
 
+def _tally_line(p) -> dict:
+    t = p.tally
+    rec = {"n": t.n, "n_dropped": p.n_dropped, "x_mean": t.x_mean, "y_mean": None, "slope": None,
+           "slope_ci_low": None, "slope_ci_high": None, "intercept": None, "r": None}
+    if t.line is not None:
+        rec["y_mean"] = t.line.y_mean
+        if t.line.n >= 3 and t.line.sxx > 0:
+            fit = t.line.fit()
+            rec.update(slope=fit.slope, slope_ci_low=fit.slope_ci_low,
+                       slope_ci_high=fit.slope_ci_high, intercept=fit.intercept, r=fit.r)
+    return rec
+
+
 def panel_statistics(spec: FigureSpec, data: FigureData) -> list[dict]:
     """One line per panel (and per colour group where colour splits the data)."""
     lines = []
     numeric_x = spec.chart.x == "numeric"
     numeric_y = spec.chart.y == "numeric"
     for p in data.panels:
+        if p.tally is not None:           # streamed: the same numbers from one-pass sums
+            lines.append({"panel": p.label, "group": None, **_tally_line(p)})
+            continue
         x = p.frame[spec.x].to_numpy(dtype=float) if numeric_x else np.array([])
         y = p.frame[spec.y].to_numpy(dtype=float) if numeric_y else None
         if not numeric_x and numeric_y:
@@ -95,6 +111,13 @@ def strata_comparison(spec: FigureSpec, data: FigureData) -> dict | None:
     """Interaction F-test of equal slopes across panels (see stats.strata_slope_test)."""
     if spec.trend != "line" or not spec.strata or len(data.panels) < 2:
         return None
+    if data.panels[0].tally is not None:
+        test = stats.strata_slope_test_from_sums(
+            {p.label: p.tally.line for p in data.panels if p.tally.line is not None})
+        return None if test is None else {
+            "F": test.F, "df_num": test.df_num, "df_den": test.df_den, "p": test.p,
+            "pooled_slope": test.pooled_slope, "crude_slope": test.crude_slope,
+            "excluded": list(test.excluded)}
     xs, ys, labels = [], [], []
     for p in data.panels:
         xs.append(p.frame[spec.x].to_numpy(dtype=float))
@@ -131,7 +154,7 @@ def render(project: Project, figure_id: str) -> dict:
     from .draw import build_figure
 
     spec = project.spec(figure_id)
-    data = load_figure_data(spec)
+    data = load_figure_data(spec, stream_above_bytes=int(project.config["stream_above_mb"] * 2 ** 20))
     out_dir = project.config.results / "figures"
     results_rel = project.config["results"]
     row = find_row(project.rows, figure_id)
@@ -201,6 +224,8 @@ def render(project: Project, figure_id: str) -> dict:
         }
         if "bin_edges" in drawn:
             record["bin_edges"] = drawn["bin_edges"]
+        if data.streamed is not None:
+            record["streamed"] = {k: v for k, v in data.streamed.items() if k != "bin_edges"}
         for msg in cautions:
             log.warning("%s: %s", spec.id, msg)
 
