@@ -53,6 +53,25 @@ class Context:
 
 # ---------------------------------------------------------------------------- helpers
 
+# Non-colour cues, so a figure still reads in greyscale or to a colour-blind reader: one marker
+# shape or one dash pattern per colour group, in legend order.
+MARKER_SHAPES = ("o", "s", "^", "D", "v", "P", "X", "*")
+DASH_PATTERNS = ("-", (0, (4, 1.5)), (0, (1, 1.2)), (0, (4, 1.5, 1, 1.5)), (0, (7, 2)),
+                 (0, (2, 2)), (0, (6, 1.5, 1, 1.5, 1, 1.5)), (0, (1, 3)))
+
+
+def cue_markers(ctx: "Context") -> dict:
+    if ctx.spec.options.get("shapes") != "yes" or not ctx.colours:
+        return {}
+    return {level: MARKER_SHAPES[i % len(MARKER_SHAPES)] for i, level in enumerate(ctx.colours)}
+
+
+def cue_dashes(ctx: "Context") -> dict:
+    if ctx.spec.options.get("dashes") != "yes" or not ctx.colours:
+        return {}
+    return {level: DASH_PATTERNS[i % len(DASH_PATTERNS)] for i, level in enumerate(ctx.colours)}
+
+
 def _values(panels: list[Panel], col: str) -> np.ndarray:
     arrays = [p.frame[col].to_numpy(dtype=float) for p in panels if p.n]
     return np.concatenate(arrays) if arrays else np.array([], dtype=float)
@@ -240,10 +259,12 @@ def draw_scatter(ax, panel: Panel, ctx: Context) -> dict:
         ctx.mappables.append(art)
     else:
         codes = panel.frame[spec.colour].to_numpy() if spec.colour else None
+        markers = cue_markers(ctx)
         for level, hexc, part in _groups(panel, ctx):   # one collection per colour group
             m = slice(None) if codes is None else (codes == level)
             ax.scatter(px[m], py[m], color=ctx.use(hexc or NEUTRAL), s=size, linewidths=0,
-                       alpha=alpha, rasterized=len(part) > 2000, zorder=2)
+                       alpha=alpha, rasterized=len(part) > 2000, zorder=2,
+                       marker=markers.get(level, "o"))
     for axis in sh["jitter"]:
         values = np.unique(panel.frame[spec.x if axis == "x" else spec.y].to_numpy(dtype=float))
         if len(values) <= 12:   # label the distinct values themselves, not fractions between them
@@ -294,7 +315,9 @@ def draw_hexbins(ax, panel: Panel, ctx: Context) -> dict:
     keep = counts >= 1
     coll = PolyCollection([grid.hexagon()], offsets=grid.centres()[keep],
                           offset_transform=AffineDeltaTransform(ax.transData), linewidths=0,
-                          cmap=ctx.cmap, rasterized=True, zorder=2)
+                          cmap=ctx.cmap, rasterized=int(keep.sum()) > 5000, zorder=2)
+    # A few thousand hexagons stay vector (sharper, and a far smaller, faster PDF than a
+    # full-page raster); only a very fine lattice is rasterised.
     coll.set_array(counts[keep].astype(float))
     ax.add_collection(coll, autolim=False)
     ax.set_xlim(*sh["xlim"])
@@ -425,7 +448,8 @@ def draw_density(ax, panel: Panel, ctx: Context) -> dict:
         dens = stats.kde(v, inside, bw)
         colour = ctx.use(hexc or NEUTRAL)
         ax.fill_between(inside, 0, dens, color=colour, alpha=0.25, linewidth=0, zorder=2)
-        ax.plot(inside, dens, color=colour, linewidth=0.9, zorder=3)
+        ax.plot(inside, dens, color=colour, linewidth=0.9, zorder=3,
+                linestyle=cue_dashes(ctx).get(level, "-"))
         groups.append({"group": level, "n": len(v), "bandwidth": bw})
     return {"groups": groups}
 

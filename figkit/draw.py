@@ -251,16 +251,35 @@ def _colour_setup(spec: FigureSpec, data: FigureData, ctx: Context) -> str | Non
     if spec.colour:
         if spec.colour in data.levels:
             pinned = spec.pinned.get(spec.colour)
+            present = data.levels[spec.colour]
+            # Colours follow the project-wide order when config lists one (orders:), so a value
+            # keeps its colour in every figure even where other values are absent.
+            explicit = spec.orders.get(spec.colour) or []
+            lookup = {str(v): v for v in present}
+            full = [lookup.get(str(e), e) for e in explicit]
+            full += [v for v in present if str(v) not in {str(e) for e in explicit}]
             try:
-                ctx.colours = assign_categories(data.levels[spec.colour], spec.style.palette, pinned)
+                colours = assign_categories(full, spec.style.palette, pinned)
             except FigkitError as exc:
                 raise exc.at(row=spec.row, figure=spec.id, field="colour") from None
+            ctx.colours = {v: colours[v] for v in present}
             ctx.colour_title = spec.axis_title(spec.colour)
             return "categories"
         import matplotlib.colors as mcolors
         vals = np.concatenate([p.frame[spec.colour].to_numpy(dtype=float) for p in data.panels if p.n]
                               or [np.array([0.0, 1.0])])
-        ctx.norm = mcolors.Normalize(float(np.nanmin(vals)), float(np.nanmax(vals)))
+        lo, hi = float(np.nanmin(vals)), float(np.nanmax(vals))
+        centre = spec.options.get("centre")
+        if centre is None:
+            ctx.norm = mcolors.Normalize(lo, hi)
+        else:
+            # A centre value asks for a diverging scheme, the centre at its neutral middle.
+            if not lo < centre < hi:
+                raise spec.err("option 'centre' must lie inside the colour field's range",
+                               field="options", value=centre, allowed=f"between {lo:g} and {hi:g}")
+            from .colour import colormap
+            ctx.cmap = colormap(spec.style.diverging)
+            ctx.norm = mcolors.TwoSlopeNorm(vcenter=centre, vmin=lo, vmax=hi)
         ctx.colour_title = spec.axis_title(spec.colour)
         return "bar"
     return "bar" if drawer.colour_bar else None
@@ -295,9 +314,16 @@ def _legend_width(kind: str | None, ctx: Context, spec: FigureSpec) -> float:
 def _legend_handles(ctx: Context, spec: FigureSpec) -> list:
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
+    from .charts import cue_dashes, cue_markers
     if spec.chart.name == "scatter":
-        return [Line2D([], [], linestyle="none", marker="o", markersize=3.5, markerfacecolor=hexc,
-                       markeredgewidth=0, label=str(level)) for level, hexc in ctx.colours.items()]
+        markers = cue_markers(ctx)
+        return [Line2D([], [], linestyle="none", marker=markers.get(level, "o"), markersize=3.5,
+                       markerfacecolor=hexc, markeredgewidth=0, label=str(level))
+                for level, hexc in ctx.colours.items()]
+    dashes = cue_dashes(ctx)
+    if dashes:
+        return [Line2D([], [], color=hexc, linewidth=1.0, linestyle=dashes[level], label=str(level))
+                for level, hexc in ctx.colours.items()]
     return [Patch(facecolor=hexc, edgecolor="none", label=str(level))
             for level, hexc in ctx.colours.items()]
 

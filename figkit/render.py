@@ -265,8 +265,11 @@ def _save(fig, path: Path, fmt: str, spec: FigureSpec, meta: str) -> None:
         fig.savefig(path, format="svg", dpi=spec.style.dpi,
                     metadata={"Title": title, "Description": meta, "Creator": "figkit", "Date": None})
     elif fmt == "png":
+        # zlib level 1: a third of the default level's time for ~18% larger files (measured in
+        # benchmarks/); PNG is lossless whatever the level.
         fig.savefig(path, format="png", dpi=spec.style.dpi,
-                    metadata={"Title": title, "Software": "figkit", "figkit": meta})
+                    metadata={"Title": title, "Software": "figkit", "figkit": meta},
+                    pil_kwargs={"compress_level": 1})
     elif fmt == "tiff":
         fig.savefig(path, format="tiff", dpi=spec.style.dpi,
                     pil_kwargs={"compression": "tiff_lzw", "description": meta})

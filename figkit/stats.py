@@ -158,7 +158,9 @@ class LineSums:
             return LineSums()
         xm, ym = float(x.mean()), float(y.mean())
         dx, dy = x - xm, y - ym
-        return LineSums(n, xm, ym, float(dx @ dx), float(dy @ dy), float(dx @ dy))
+        # einsum, not @: a dot product through BLAS threads is erratic on a busy 2-core machine
+        return LineSums(n, xm, ym, float(np.einsum("i,i->", dx, dx)),
+                        float(np.einsum("i,i->", dy, dy)), float(np.einsum("i,i->", dx, dy)))
 
     def add(self, x, y) -> "LineSums":
         """These sums combined with the chunk (x, y); NaN pairs are skipped."""
