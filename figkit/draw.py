@@ -358,6 +358,16 @@ def _panel_title(panel, spec: FigureSpec) -> str:
     return str(value)
 
 
+def panel_letter(i: int, case: str) -> str:
+    """a, b, ... z, aa, ab, ... (upper case when the house style says so)."""
+    letters = ""
+    i += 1
+    while i:
+        i, r = divmod(i - 1, 26)
+        letters = chr(ord("a") + r) + letters
+    return letters.upper() if case == "upper" else letters
+
+
 def _count_label(v, _pos=None) -> str:
     """Tick label of a log count scale as a plain number (no exponents in small print)."""
     return f"{v:.0f}" if v >= 1 else f"{v:g}"
@@ -407,7 +417,8 @@ def build_figure(spec: FigureSpec, data: FigureData):
     key = _colour_setup(spec, data, ctx)
     xtitle = bool(spec.x)
     ytitle = spec.chart.y is not None or spec.chart.name in ("histogram", "density", "count-bars", "shares")
-    titles = len(spec.strata) == 1
+    # Wrapped panels carry titles; grid panels only when they are lettered (the letter alone).
+    titles = len(spec.strata) == 1 or (spec.letters and spec.grid)
     tick = _tick_mm(spec)
 
     est_y = max(_text_width_mm("0000", st.tick_pt), 5.0)
@@ -549,7 +560,9 @@ def build_figure(spec: FigureSpec, data: FigureData):
                     t.set(rotation=angle, ha="right", va="center" if angle == 90 else "top",
                           rotation_mode="anchor", multialignment="right")
 
-    title_texts = [_panel_title(p, spec) for p in panels] if titles else []
+    title_texts = [_panel_title(p, spec) if not spec.grid else "" for p in panels] if titles else []
+    if spec.letters and titles:     # the letter leads the title
+        title_texts = [f"{panel_letter(i, st.letters)}  {t}".strip() for i, t in enumerate(title_texts)]
     bold = _measurer(fig, st.title_pt, "bold")
     plain = _measurer(fig, st.base_pt)
 

@@ -48,7 +48,7 @@ def spec_from_cells(cells: dict, project: Project | str | Path = ".") -> FigureS
     """A spec from a dict of sheet cells (as a notebook would write a row), in a project."""
     proj = project if isinstance(project, Project) else load_project(project)
     clean = {k: str(v) for k, v in cells.items() if v not in (None, "")}
-    return build_spec(check_row(0, clean), proj.config)
+    return build_spec(check_row(None, clean), proj.config)   # no sheet row to name
 
 
 def _stat_line(panel, spec: FigureSpec, x, y) -> dict:

@@ -116,6 +116,7 @@ class FigureSpec:
     formats: tuple[str, ...]
     root: Path
     cells: dict = field(default_factory=dict)
+    letters: bool = False             # letter each panel (case from the house style)
 
     @property
     def grid(self) -> bool:
@@ -279,7 +280,8 @@ def build_spec(row: SheetRow, config: Config, columns: list[str] | None = None) 
         height_mm=float(c["height_mm"]) if c.get("height_mm") else None, columns=columns_fixed,
         style=style, options=options, caption=c.get("caption", ""), labels=labels,
         orders=dict(config.get("orders") or {}), pinned=dict(config.get("colours") or {}),
-        formats=tuple(config["formats"]), root=config.root, cells=dict(c))
+        formats=tuple(config["formats"]), root=config.root, cells=dict(c),
+        letters=c.get("panel_letters", "no") == "yes" and style.letters != "none")
     if columns is not None:
         check_columns(spec, columns)
     return spec
