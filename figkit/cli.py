@@ -231,3 +231,6 @@ def main(argv=None) -> int:
     except FigkitError as exc:
         print(f"figkit: error: {exc}", file=sys.stderr)
         return 2
+    except BrokenPipeError:       # output piped into `head` and the like: not an error
+        sys.stderr.close()
+        return 0

@@ -1,0 +1,334 @@
+"""One benchmark case per process: ``python benchmarks/cases.py CASE ARGS_JSON OUT_JSON``.
+
+The driver (run.py) starts a fresh interpreter for every case so that peak memory and warm
+caches of one case never leak into another.  Each case writes a JSON result to OUT_JSON; the
+child's own peak resident memory (VmHWM) is added to it.
+
+Timing: time.perf_counter; a case runs once and, if that run was short (< SHORT_S seconds),
+twice more, reporting the best (least disturbed) run.
+"""
+from __future__ import annotations
+
+import json
+import os
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+SHORT_S = 30.0          # every case below 1e8 rows gets its best of 3
+N_STRATA = 12
+SEED = 20_241_117
+CHUNK = 1_000_000
+FIELDS = ["x", "y", "stratum"]
+
+
+# ------------------------------------------------------------------------------- helpers
+def proc_status() -> dict:
+    """VmRSS and VmHWM of this process in bytes (Linux /proc)."""
+    out = {}
+    try:
+        with open("/proc/self/status") as fh:
+            for line in fh:
+                if line.startswith(("VmRSS", "VmHWM")):
+                    key, value = line.split(":")
+                    out[key] = int(value.split()[0]) * 1024
+    except OSError:
+        pass
+    return out
+
+
+def reset_peak() -> bool:
+    """Reset VmHWM to the current RSS (Linux >= 4.0: write 5 to /proc/self/clear_refs)."""
+    try:
+        with open("/proc/self/clear_refs", "w") as fh:
+            fh.write("5")
+        return True
+    except OSError:
+        return False
+
+
+def timed(fn, repeat: int):
+    """(best seconds, every run's seconds, last result); more runs only if the first was short."""
+    times, result = [], None
+    for i in range(max(1, repeat)):
+        t0 = time.perf_counter()
+        result = fn()
+        times.append(time.perf_counter() - t0)
+        if times[0] >= SHORT_S:
+            break
+    return min(times), times, result
+
+
+# ---------------------------------------------------------------------------------- data
+def points(n: int, chunk_index: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Synthetic (x, y, stratum code): 12 strata, x normal around a stratum mean, y a noisy
+    straight line of x whose slope differs by stratum (correlation about 0.4-0.75)."""
+    rng = np.random.default_rng(np.random.SeedSequence([SEED, chunk_index]))
+    g = rng.integers(0, N_STRATA, n)
+    mu = np.linspace(-1.0, 1.0, N_STRATA)
+    slope = np.linspace(0.3, 0.9, N_STRATA)
+    x = mu[g] + rng.standard_normal(n)
+    y = slope[g] * x + 0.8 * rng.standard_normal(n)
+    return np.round(x, 4), np.round(y, 4), g
+
+
+STRATUM_NAMES = np.array([f"s{i + 1:02d}" for i in range(N_STRATA)], dtype=object)
+
+
+def _write_chunk(args):
+    import pandas as pd
+    path, n, index = args
+    x, y, g = points(n, index)
+    pd.DataFrame({"x": x, "y": y, "stratum": STRATUM_NAMES[g]}).to_csv(path, index=False, header=False)
+    return path
+
+
+def case_make_csv(a: dict) -> dict:
+    """Write n rows as CSV in chunks of 1e6 rows (two worker processes), header first."""
+    from concurrent.futures import ProcessPoolExecutor
+    n, path = int(a["n"]), Path(a["path"])
+    path.parent.mkdir(parents=True, exist_ok=True)
+    jobs = [(str(path) + f".part{i}", min(CHUNK, n - start), i)
+            for i, start in enumerate(range(0, n, CHUNK))]
+    t0 = time.perf_counter()
+    with ProcessPoolExecutor(max_workers=min(2, len(jobs))) as pool, open(path, "wb") as out:
+        out.write((",".join(FIELDS) + "\n").encode())
+        for part in pool.map(_write_chunk, jobs):
+            with open(part, "rb") as fh:
+                while block := fh.read(1 << 24):
+                    out.write(block)
+            os.remove(part)
+    return {"seconds": time.perf_counter() - t0, "bytes": path.stat().st_size}
+
+
+def read_points(path: str):
+    """The same reader call figkit makes (figkit.data.read_dataset for a .csv)."""
+    import pandas as pd
+    return pd.read_csv(path, usecols=FIELDS, sep=",", low_memory=False)
+
+
+# ------------------------------------------------------------------------ figkit render
+def _stage_timers():
+    """Wrap figkit's stage functions (module attributes, not figkit's files) to time stages."""
+    import figkit.data
+    import figkit.draw
+    import figkit.render
+    totals: dict[str, float] = {}
+
+    def wrap(module, name, label):
+        inner = getattr(module, name, None)
+        if inner is None:          # renamed in figkit: that stage is simply not broken out
+            return
+
+        def timed_stage(*args, **kwargs):
+            t0 = time.perf_counter()
+            try:
+                return inner(*args, **kwargs)
+            finally:
+                key = label if label != "save" else f"save {args[2]}"
+                totals[key] = totals.get(key, 0.0) + time.perf_counter() - t0
+        setattr(module, name, timed_stage)
+
+    wrap(figkit.data, "read_dataset", "read csv")
+    if hasattr(figkit.data, "stream_figure_data"):
+        wrap(figkit.data, "stream_figure_data", "streamed load (chunked read + tallies)")
+    wrap(figkit.data, "sha256_file", "hash input")
+    wrap(figkit.render, "load_figure_data", "load data (incl. read, hash, split)")
+    wrap(figkit.draw, "build_figure", "build figure (prepare, draw, layout)")
+    wrap(figkit.render, "enforce_minimums", "checks")
+    wrap(figkit.render, "panel_statistics", "panel statistics")
+    wrap(figkit.render, "strata_comparison", "strata test")
+    wrap(figkit.render, "_save", "save")
+    return totals
+
+
+def case_figkit_render(a: dict) -> dict:
+    """figkit.render.render(load_project(root), id) in-process; imports timed on their own."""
+    t0 = time.perf_counter()
+    import matplotlib
+    matplotlib.use("Agg")
+    from figkit.render import load_project, render
+    import_s = time.perf_counter() - t0
+    totals = _stage_timers()
+    per_run = []
+    if "stream_above_bytes" in a:        # force (or forbid) the chunked path for big files
+        import figkit.data
+        if not hasattr(figkit.data, "STREAM_ABOVE_BYTES"):
+            raise SystemExit("this figkit has no streaming path (figkit.data.STREAM_ABOVE_BYTES)")
+        figkit.data.STREAM_ABOVE_BYTES = int(a["stream_above_bytes"])
+
+    def once():
+        totals.clear()
+        rec = render(load_project(a["root"]), a["id"])
+        per_run.append(dict(totals))
+        return rec
+
+    profile = a.get("profile")
+    if profile:
+        import cProfile
+        once()                      # warm caches (fonts) as the timed runs are warm too
+        prof = cProfile.Profile()
+        t1 = time.perf_counter()
+        prof.enable()
+        rec = once()
+        prof.disable()
+        best, times = time.perf_counter() - t1, []
+        prof.dump_stats(profile)
+    else:
+        best, times, rec = timed(once, a.get("repeat", 3))
+    out_dir = Path(a["root"]) / "results" / "figures"
+    files = {fmt: (out_dir / name).stat().st_size for fmt, name in rec["files"].items()}
+    stages = per_run[int(np.argmin(times))] if times else per_run[-1]
+    return {"seconds": best, "times": times, "import_s": import_s, "files": files,
+            "size_mm": rec["size_mm"], "layout": {k: rec["layout"].get(k) for k in ("rows", "cols")},
+            "drawing": rec["panels"][0].get("drawing"), "n_panels": len(rec["panels"]),
+            "stages": stages}
+
+
+# ---------------------------------------------------------------- plain matplotlib script
+def case_plain_scatter(a: dict) -> dict:
+    """What one would write by hand: read the CSV, a rows x cols grid, one ax.scatter per
+    panel with alpha=0.1, save a PDF.  Default matplotlib style, no rasterizing."""
+    t0 = time.perf_counter()
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    import_s = time.perf_counter() - t0
+    out = Path(a["out"])
+    w_in, h_in = a["size_mm"][0] / 25.4, a["size_mm"][1] / 25.4
+
+    def once():
+        df = read_points(a["csv"])
+        fig, axes = plt.subplots(a["rows"], a["cols"], figsize=(w_in, h_in), sharex=True, sharey=True)
+        for ax, (level, part) in zip(axes.flat, df.groupby("stratum", sort=True)):
+            ax.scatter(part["x"].to_numpy(), part["y"].to_numpy(), s=a["marker_pt2"], alpha=0.1,
+                       linewidths=0)
+            ax.set_title(str(level))
+        fig.savefig(out, format="pdf")
+        plt.close(fig)
+
+    best, times, _ = timed(once, a.get("repeat", 3))
+    return {"seconds": best, "times": times, "import_s": import_s, "pdf_bytes": out.stat().st_size}
+
+
+# ------------------------------------------------------------------ aggregation bound
+def case_bincount_bound(a: dict) -> dict:
+    """The least work a 12-panel density figure needs: read the columns (figkit's own reader
+    call), factorize the stratum, integer cell indices, one np.bincount for all panels."""
+    import pandas as pd
+    nx, ny = int(a["nx"]), int(a["ny"])
+    repeat = a.get("repeat", 3)
+    read_s, read_times, df = timed(lambda: read_points(a["csv"]), repeat)
+
+    def aggregate():
+        codes, levels = pd.factorize(df["stratum"])
+        x = df["x"].to_numpy(dtype=float)
+        y = df["y"].to_numpy(dtype=float)
+        x0, x1, y0, y1 = x.min(), x.max(), y.min(), y.max()
+        ix = ((x - x0) * (nx / (x1 - x0))).astype(np.int64)
+        np.minimum(ix, nx - 1, out=ix)
+        iy = ((y - y0) * (ny / (y1 - y0))).astype(np.int64)
+        np.minimum(iy, ny - 1, out=iy)
+        cell = (codes.astype(np.int64) * nx + ix) * ny + iy
+        return np.bincount(cell, minlength=len(levels) * nx * ny)
+
+    agg_s, agg_times, counts = timed(aggregate, repeat)
+    assert counts.sum() == len(df)
+    return {"read_s": read_s, "read_times": read_times, "agg_s": agg_s, "agg_times": agg_times,
+            "seconds": read_s + agg_s, "rows": len(df)}
+
+
+# ---------------------------------------------------------------------- line statistics
+def case_line_fits(a: dict) -> dict:
+    """Per-panel straight lines with figkit.stats.fit_line after the same pandas split
+    figkit.data makes, against one groupby().mean() over the same frame."""
+    from figkit import stats
+    df = read_points(a["csv"])
+    repeat = a.get("repeat", 3)
+
+    def figkit_fits():
+        fits = {}
+        for level, part in df.groupby("stratum", sort=False, observed=True):
+            fits[level] = stats.fit_line(part["x"].to_numpy(dtype=float), part["y"].to_numpy(dtype=float))
+        return fits
+
+    def presplit():
+        return {k: (p["x"].to_numpy(dtype=float), p["y"].to_numpy(dtype=float))
+                for k, p in df.groupby("stratum", sort=False, observed=True)}
+
+    def groupby_mean():
+        return df.groupby("stratum", sort=False, observed=True)[["x", "y"]].mean()
+
+    fk_s, fk_times, fits = timed(figkit_fits, repeat)
+    if a.get("profile"):
+        import cProfile
+        prof = cProfile.Profile()
+        prof.runcall(figkit_fits)
+        prof.dump_stats(a["profile"])
+    base_s, base_times, means = timed(groupby_mean, repeat)
+    parts = presplit()
+    fit_only_s, fit_only_times, _ = timed(
+        lambda: [stats.fit_line(px, py) for px, py in parts.values()], repeat)
+    split_s, _, _ = timed(presplit, repeat)
+    # The two computations agree on the means (a check that both did the whole job).
+    worst = max(abs(fits[k].x_mean - means.loc[k, "x"]) for k in fits)
+    assert worst < 1e-9, worst
+    return {"seconds": fk_s, "times": fk_times, "baseline_s": base_s, "baseline_times": base_times,
+            "fit_only_s": fit_only_s, "fit_only_times": fit_only_times, "split_s": split_s,
+            "rows": len(df)}
+
+
+# ------------------------------------------------------------------------------- LOESS
+def _loess_data(n: int):
+    rng = np.random.default_rng(np.random.SeedSequence([SEED, 99, n]))
+    x = rng.uniform(0.0, 10.0, n)
+    y = np.sin(x) + 0.3 * x + rng.normal(0.0, 0.4, n)
+    return x, y
+
+
+def case_loess(a: dict) -> dict:
+    """figkit.stats.loess (defaults: span 0.75, degree 1, no robustness iterations, 200
+    vertices) or, with ``impl: reference``, statsmodels' lowess with a delta that gives a
+    similar number of local fits.  Extra peak RSS = VmHWM after the call - VmRSS before it."""
+    n = int(a["n"])
+    x, y = _loess_data(n)
+    if a.get("impl") == "reference":
+        from statsmodels.nonparametric.smoothers_lowess import lowess
+        delta = float(np.ptp(x)) / 200.0
+
+        def fn():
+            return lowess(y, x, frac=0.75, it=0, delta=delta, return_sorted=True)
+    else:
+        from figkit import stats
+
+        def fn():
+            return stats.loess(x, y, span=0.75)
+    fn()   # import-time and first-touch effects out of the way
+    before = proc_status().get("VmRSS", 0)
+    peak_reset = reset_peak()
+    best, times, _ = timed(fn, a.get("repeat", 3))
+    after = proc_status()
+    return {"seconds": best, "times": times, "extra_peak_bytes": after.get("VmHWM", 0) - before,
+            "peak_reset": peak_reset, "data_bytes": x.nbytes + y.nbytes}
+
+
+CASES = {"make_csv": case_make_csv, "figkit_render": case_figkit_render,
+         "plain_scatter": case_plain_scatter, "bincount_bound": case_bincount_bound,
+         "line_fits": case_line_fits, "loess": case_loess}
+
+
+def main(argv: list[str]) -> int:
+    case, args, out = argv[1], json.loads(argv[2]), Path(argv[3])
+    if args.get("limit_bytes"):
+        import resource
+        resource.setrlimit(resource.RLIMIT_AS, (int(args["limit_bytes"]),) * 2)
+    result = CASES[case](args)
+    result["child_peak_bytes"] = proc_status().get("VmHWM")
+    out.write_text(json.dumps(result), encoding="utf-8")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main(sys.argv))

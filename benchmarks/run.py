@@ -1,0 +1,509 @@
+"""figkit benchmarks: ``python benchmarks/run.py [--quick] [--big] [--profile]``.
+
+Every case runs in its own fresh Python process (benchmarks/cases.py), so one case's peak
+memory and warm caches never leak into another; the parent reads each child's peak RSS with
+os.wait4 and the child reports its own VmHWM.  Ratios are figkit / baseline, measured in the
+same run on the same machine.  Writes benchmarks/RESULTS.md (and RESULTS.json with the raw numbers;
+PROFILE.md with --profile) and prints the table.
+
+    --quick    smaller sizes, one run per case: a smoke test (well under a minute)
+    --big      also the 1e8-row density figure (needs about 18 GiB free memory, 6 GB disk)
+    --profile  cProfile the slow figkit cases and write benchmarks/PROFILE.md
+    --keep DIR keep the generated data and projects in DIR (reused when present)
+    --only 1,3 run some benchmarks only (5 runs with 2);  --out FILE  table elsewhere
+"""
+from __future__ import annotations
+
+import argparse
+import datetime as dt
+import json
+import math
+import os
+import platform
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+REPO = HERE.parent
+STYLES = REPO / "figkit" / "styles"
+CASES = HERE / "cases.py"
+sys.path.insert(0, str(HERE))
+sys.dont_write_bytecode = True    # no __pycache__ in benchmarks/
+from cases import SHORT_S  # noqa: E402  (the same repeat rule as the children)
+
+FULL = {"scatter": 10**6, "growth": [10**5, 10**6, 10**7], "density": 10**7, "fits": 10**7,
+        "loess": [10**4, 10**5], "repeat": 3}
+QUICK = {"scatter": 10**5, "growth": [10**4, 10**5], "density": 10**5, "fits": 10**6,
+         "loess": [10**3, 10**4], "repeat": 1}
+BIG_N = 10**8
+BIG_MEM = 18 * 2**30       # MemAvailable needed before trying 1e8 rows
+BIG_LIMIT = 20 * 2**30     # address-space cap of each 1e8 child (the machine has 24 GiB)
+HEX_CELLS = 30             # figkit's default hexagons across a panel
+# Rectangular cells for the bound: about as many as 30-across hexagons on two lattices
+# (31 x 18 + 30 x 17 = 1068).
+BOUND_CELLS = (30, 36)
+
+SHEET = ("id\tdataset\tchart\tx\ty\tstrata\n"
+         "scatter12\tpoints\tscatter\tx\ty\tstratum\n"
+         "hexbins12\tpoints\thexbins\tx\ty\tstratum\n")
+CONFIG = """\
+# figkit benchmark project (written by benchmarks/run.py)
+datasets:
+  points: data/points.csv
+formats: [pdf, png]
+fields:
+  x: {label: Predictor}
+  y: {label: Response}
+  stratum: {label: Stratum}
+"""
+
+
+# ------------------------------------------------------------------------------- plumbing
+def run_child(case: str, args: dict, work: Path, label: str) -> dict:
+    """Run one case in a fresh interpreter; its result plus wall time and peak RSS (wait4)."""
+    out = work / "out" / f"{label}.json"
+    log = work / "out" / f"{label}.log"
+    out.parent.mkdir(parents=True, exist_ok=True)
+    out.unlink(missing_ok=True)
+    env = dict(os.environ, MPLBACKEND="Agg", PYTHONHASHSEED="0")
+    t0 = time.perf_counter()
+    with open(log, "w") as fh:
+        proc = subprocess.Popen([sys.executable, str(CASES), case, json.dumps(args), str(out)],
+                                stdout=fh, stderr=subprocess.STDOUT, env=env, cwd=REPO)
+        _, status, usage = os.wait4(proc.pid, 0)
+        proc.returncode = os.waitstatus_to_exitcode(status)
+    wall = time.perf_counter() - t0
+    if proc.returncode != 0 or not out.is_file():
+        tail = log.read_text(errors="replace").strip().splitlines()[-6:]
+        print(f"  ! {label} failed (exit {proc.returncode}): {' | '.join(tail)}", file=sys.stderr)
+        return {"error": tail[-1] if tail else f"exit {proc.returncode}", "wall_s": wall}
+    res = json.loads(out.read_text())
+    res["wall_s"] = wall
+    res["ru_maxrss_bytes"] = usage.ru_maxrss * 1024      # Linux reports KiB
+    res["cpu_s"] = usage.ru_utime + usage.ru_stime        # less disturbed by other load than wall time
+    return res
+
+
+def make_project(root: Path) -> Path:
+    (root / "config").mkdir(parents=True, exist_ok=True)
+    (root / "config" / "config.yaml").write_text(CONFIG, encoding="utf-8")
+    (root / "config" / "figures.tsv").write_text(SHEET, encoding="utf-8")
+    if not (root / "styles").exists():
+        shutil.copytree(STYLES, root / "styles")
+    return root
+
+
+def dataset(n: int, work: Path, log: dict) -> Path:
+    """Project folder with n rows of data/points.csv (generated once per size)."""
+    root = make_project(work / f"n{n:.0e}".replace("+", ""))
+    csv = root / "data" / "points.csv"
+    if not csv.is_file():
+        res = run_child("make_csv", {"n": n, "path": str(csv)}, work, f"make_csv_{n:.0e}")
+        if "error" in res:
+            raise SystemExit(f"could not write the {n:.0e}-row data set: {res['error']}")
+        log[fn(n)] = {"seconds": res["seconds"], "bytes": res["bytes"]}
+    return root
+
+
+def marker_pt2() -> float:
+    """figkit's marker area (house style lines.markersize squared): the baseline uses the same."""
+    for line in (STYLES / "house.mplstyle").read_text().splitlines():
+        if line.split(":")[0].strip() == "lines.markersize":
+            return float(line.split(":")[1].split("#")[0]) ** 2
+    return 6.25
+
+
+def mem_available() -> int:
+    try:
+        for line in open("/proc/meminfo"):
+            if line.startswith("MemAvailable"):
+                return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    return 0
+
+
+# ------------------------------------------------------------------------------ formatting
+def fs(seconds) -> str:
+    if seconds is None:
+        return "—"
+    return f"{seconds * 1e3:.1f} ms" if seconds < 1 else f"{seconds:.2f} s"
+
+
+def fb(nbytes) -> str:
+    if nbytes is None:
+        return "—"
+    return f"{nbytes / 2**20:.2f} MiB" if nbytes >= 2**20 else f"{nbytes / 1024:.0f} KiB"
+
+
+def fn(n) -> str:
+    e = int(round(math.log10(n)))
+    return f"1e{e}" if 10**e == n else f"{n:,}"
+
+
+def fr(r) -> str:
+    return "—" if r is None else f"{r:.3g}"
+
+
+def met(ok) -> str:
+    return "—" if ok is None else ("yes" if ok else "**no**")
+
+
+def versions() -> dict:
+    import matplotlib
+    import numpy
+    import pandas
+    out = {"python": platform.python_version(), "numpy": numpy.__version__,
+           "pandas": pandas.__version__, "matplotlib": matplotlib.__version__}
+    try:
+        import figkit
+        out["figkit"] = figkit.__version__
+    except ImportError:
+        out["figkit"] = "not importable"
+    try:   # pandas stores text in pyarrow when it is installed: it changes the timings
+        import pyarrow
+        out["pyarrow"] = pyarrow.__version__
+    except ImportError:
+        out["pyarrow"] = "not installed"
+    return out
+
+
+def git_state() -> str:
+    """Commit of the working tree and whether figkit/ has uncommitted changes (read-only git)."""
+    try:
+        head = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=REPO, capture_output=True,
+                              text=True, timeout=10).stdout.strip()
+        dirty = subprocess.run(["git", "status", "--porcelain", "--", "figkit"], cwd=REPO,
+                               capture_output=True, text=True, timeout=10).stdout.strip()
+    except (OSError, subprocess.SubprocessError):
+        return "commit unknown"
+    return f"commit {head or 'unknown'}{', figkit/ has uncommitted changes' if dirty else ''}"
+
+
+def cpu_model() -> str:
+    try:
+        for line in open("/proc/cpuinfo"):
+            if line.startswith("model name"):
+                return line.split(":", 1)[1].strip()
+    except OSError:
+        pass
+    return platform.processor() or "unknown"
+
+
+# ------------------------------------------------------------------------------ benchmarks
+def bench_scatter(sz, work, rows, details, data_log, profile):
+    n = sz["scatter"]
+    root = dataset(n, work, data_log)
+    fk = run_child("figkit_render", {"root": str(root), "id": "scatter12", "repeat": sz["repeat"]},
+                   work, f"figkit_scatter_{n:.0e}")
+    details["figkit scatter12 " + fn(n)] = fk
+    if "error" in fk:
+        rows.append(["1. scatter, 12 panels: time", fn(n), "failed", "—", "—", "≤ 0.1 (≥ 10× faster)", "—"])
+        return
+    base = run_child("plain_scatter", {
+        "csv": str(root / "data" / "points.csv"), "size_mm": fk["size_mm"],
+        "rows": fk["layout"]["rows"], "cols": fk["layout"]["cols"], "marker_pt2": marker_pt2(),
+        "out": str(work / "plain_scatter.pdf"), "repeat": sz["repeat"]}, work, f"plain_scatter_{n:.0e}")
+    details["plain matplotlib scatter " + fn(n)] = base
+    bt = base.get("seconds")
+    r = fk["seconds"] / bt if bt else None
+    rows.append([f"1. scatter, 12 panels ({fk['layout']['rows']} rows × {fk['layout']['cols']} cols), incl. CSV read: time",
+                 fn(n), fs(fk["seconds"]), fs(bt) if bt else "failed", fr(r), "≤ 0.1 (≥ 10× faster)",
+                 met(None if r is None else r <= 0.1)])
+    pdf = fk["files"].get("pdf")
+    bp = base.get("pdf_bytes")
+    rows.append(["1. scatter, 12 panels: PDF size", fn(n), fb(pdf), fb(bp),
+                 fr(pdf / bp if bp else None), "figkit PDF ≤ 1 MB", met(pdf <= 10**6)])
+    if profile is not None:
+        run_child("figkit_render", {"root": str(root), "id": "scatter12",
+                                    "profile": str(work / "prof_scatter.pstats")}, work, "prof_scatter")
+        profile["1. scatter12, " + fn(n)] = work / "prof_scatter.pstats"
+
+
+def bench_density(sz, work, rows, details, data_log, profile, big):
+    """Benchmarks 2 and 5: hexbins figure at every growth size against the bincount bound."""
+    sizes = list(sz["growth"])
+    if big:
+        if mem_available() >= BIG_MEM and shutil.disk_usage(work).free >= 6 * 10**9:
+            sizes.append(BIG_N)
+        else:
+            details["1e8 skipped"] = {"reason": f"MemAvailable {fb(mem_available())} or disk too small"}
+    res = {}
+    for n in sizes:
+        root = dataset(n, work, data_log)
+        # Cap the 1e8 children's address space below what is free, so that a miss fails the
+        # case (MemoryError) instead of pushing the machine into swap.
+        cap = min(BIG_LIMIT, mem_available() - 3 * 2**30)
+        limit = {"limit_bytes": cap} if n >= BIG_N else {}
+        fk = run_child("figkit_render", {"root": str(root), "id": "hexbins12", "repeat": sz["repeat"], **limit},
+                       work, f"figkit_hexbins_{n:.0e}")
+        bd = run_child("bincount_bound", {"csv": str(root / "data" / "points.csv"), "nx": BOUND_CELLS[0],
+                                          "ny": BOUND_CELLS[1], "repeat": sz["repeat"], **limit},
+                       work, f"bound_{n:.0e}")
+        details["figkit hexbins12 " + fn(n)] = fk
+        details["bincount bound " + fn(n)] = bd
+        res[n] = (fk, bd)
+        if n >= BIG_N:    # free the disk: 1e8 rows are several GB
+            shutil.rmtree(root / "data", ignore_errors=True)
+
+    # The chunked (streaming) path at the main size, forced on: figkit streams hexbins from
+    # files above a size threshold; here the in-memory and streamed paths meet on the same file.
+    big_n = sz["density"]
+    stream = run_child("figkit_render", {"root": str(dataset(big_n, work, data_log)), "id": "hexbins12",
+                                         "repeat": sz["repeat"], "stream_above_bytes": 0},
+                       work, f"figkit_hexbins_streamed_{big_n:.0e}")
+    details["figkit hexbins12 streamed " + fn(big_n)] = stream
+
+    fixed_n = min(sz["growth"])
+    fk_f, _ = res[fixed_n]
+    fk_b, bd_b = res[big_n]
+    if "error" in fk_f or "error" in fk_b or "error" in bd_b:
+        rows.append(["2. density 12 panels vs bincount bound", fn(big_n), "failed", "—", "—", "≤ 3", "—"])
+    else:
+        F = fk_f["seconds"]
+        T = fk_b["seconds"]
+        B = bd_b["seconds"]
+        rows.append([f"2. density (hexbins), 12 panels: fixed cost F = figkit time at {fn(fixed_n)}",
+                     fn(fixed_n), fs(F), "—", "—", "—", "—"])
+        r = (T - F) / B
+        rows.append(["2a. density: (figkit − F) vs bound = CSV read + factorize + bincount",
+                     fn(big_n), f"{fs(T)} − F = {fs(T - F)}", fs(B), fr(r), "≤ 3 (T ≤ 3·bound + F)",
+                     met(r <= 3)])
+        # Without file reading: figkit's own read time (stage timer) and the bound's in-memory part.
+        read_b = fk_b["stages"].get("read csv", 0.0)
+        read_f = fk_f["stages"].get("read csv", 0.0)
+        marg = (T - read_b) - (F - read_f)
+        r2 = marg / bd_b["agg_s"]
+        rows.append(["2b. density without file reading: (figkit − read − F′) vs in-memory factorize + bincount",
+                     fn(big_n), fs(marg), fs(bd_b["agg_s"]), fr(r2), "≤ 3", met(r2 <= 3)])
+    for n in sizes:
+        fk, bd = res[n]
+        if "error" in fk or "error" in bd:
+            rows.append(["5. growth: hexbins figure (PDF+PNG) vs read + bincount", fn(n),
+                         "failed: " + fk.get("error", "") if "error" in fk else fs(fk["seconds"]),
+                         "failed" if "error" in bd else fs(bd["seconds"]), "—", "—", "—"])
+            continue
+        rows.append(["5. growth: hexbins figure (PDF+PNG) vs read + bincount", fn(n), fs(fk["seconds"]),
+                     fs(bd["seconds"]), fr(fk["seconds"] / bd["seconds"]), "—", "—"])
+    fk_b, bd_b = res[big_n]
+    if "error" not in stream and "error" not in bd_b:
+        rows.append(["5s. hexbins figure, streamed path forced (chunks of 1e6 rows) vs read + bincount",
+                     fn(big_n), fs(stream["seconds"]), fs(bd_b["seconds"]),
+                     fr(stream["seconds"] / bd_b["seconds"]), "—", "—"])
+    else:
+        rows.append(["5s. hexbins figure, streamed path forced", fn(big_n),
+                     "failed: " + stream.get("error", "")[:80] if "error" in stream else "—", "—", "—", "—", "—"])
+    if not big:
+        rows.append(["5. growth: 1e8 rows", "1e8", "not run (use --big)", "—", "—", "—", "—"])
+    if profile is not None:
+        root = dataset(big_n, work, data_log)
+        run_child("figkit_render", {"root": str(root), "id": "hexbins12",
+                                    "profile": str(work / "prof_hexbins.pstats")}, work, "prof_hexbins")
+        profile["2. hexbins12, " + fn(big_n)] = work / "prof_hexbins.pstats"
+
+
+def bench_fits(sz, work, rows, details, data_log, profile):
+    n = sz["fits"]
+    root = dataset(n, work, data_log)
+    res = run_child("line_fits", {"csv": str(root / "data" / "points.csv"), "repeat": sz["repeat"],
+                                  **({"profile": str(work / "prof_fits.pstats")} if profile is not None else {})},
+                    work, f"line_fits_{n:.0e}")
+    details["line fits " + fn(n)] = res
+    if "error" in res:
+        rows.append(["3. line fits, 12 panels", fn(n), "failed", "—", "—", "≤ 2", "—"])
+        return
+    r = res["seconds"] / res["baseline_s"]
+    rows.append(["3. line fits, 12 panels: pandas split + fit_line ×12 vs groupby().mean()", fn(n),
+                 fs(res["seconds"]), fs(res["baseline_s"]), fr(r), "≤ 2", met(r <= 2)])
+    if profile is not None:
+        profile["3. line fits (split + fit_line ×12), " + fn(n)] = work / "prof_fits.pstats"
+
+
+def bench_loess(sz, work, rows, details):
+    small, large = sz["loess"]
+    fk = {n: run_child("loess", {"n": n, "repeat": sz["repeat"]}, work, f"loess_{n:.0e}")
+          for n in (small, large)}
+    ref = {}
+    try:
+        import importlib.util
+        have_ref = importlib.util.find_spec("statsmodels") is not None
+    except ImportError:
+        have_ref = False
+    if have_ref:
+        ref = {n: run_child("loess", {"n": n, "impl": "reference", "repeat": sz["repeat"]}, work,
+                            f"lowess_ref_{n:.0e}") for n in (small, large)}
+    for n in (small, large):
+        details[f"figkit loess {fn(n)}"] = fk[n]
+        if n in ref:
+            details[f"statsmodels lowess {fn(n)}"] = ref[n]
+    for n in (small, large):
+        if "error" in fk[n]:
+            rows.append(["4. LOESS time", fn(n), "failed", "—", "—", "—", "—"])
+            continue
+        rt = ref.get(n, {}).get("seconds")
+        rows.append(["4. LOESS time (span 0.75, degree 1) vs statsmodels lowess (delta = range/200)", fn(n),
+                     fs(fk[n]["seconds"]), fs(rt) if rt else "not available",
+                     fr(fk[n]["seconds"] / rt if rt else None), "— (reference)", "—"])
+    if "error" not in fk[small] and "error" not in fk[large]:
+        a, b = fk[large]["extra_peak_bytes"], fk[small]["extra_peak_bytes"]
+        r = a / b if b > 0 else None
+        growth = large / small
+        # Bounded memory: growth no steeper than about linear (exponent 1.25), far from n^2.
+        limit = growth ** 1.25
+        rows.append([f"4. LOESS extra peak RSS: {fn(large)} (figkit col.) vs {fn(small)} (baseline col.)",
+                     f"{fn(large)} vs {fn(small)}", fb(a), fb(b), fr(r),
+                     f"≤ {limit:.1f} = {growth:.0f}^1.25 (linear {growth:.0f}, n² {growth ** 2:.0f})",
+                     met(None if r is None else r <= limit)])
+
+
+# -------------------------------------------------------------------------------- reports
+def short_path(filename: str) -> str:
+    for marker in ("site-packages/", str(REPO) + "/"):
+        if marker in filename:
+            return filename.split(marker, 1)[1]
+    return Path(filename).name if "/" in filename else filename
+
+
+def profile_report(profiles: dict) -> str:
+    import pstats
+    out = ["# figkit benchmark profiles", "",
+           "cProfile of one warm run per case (a first, unprofiled run warms font caches).",
+           "`own` = time inside the function itself, `cum` = including callees.", ""]
+    for title, path in profiles.items():
+        if not Path(path).is_file():
+            out += [f"## {title}", "", "profile not written (the case failed)", ""]
+            continue
+        st = pstats.Stats(str(path))
+        total = st.total_tt
+        entries = []
+        for (fname, line, func), (cc, nc, tt, ct, callers) in st.stats.items():
+            where = f"{short_path(fname)}:{func}" if fname != "~" else func
+            entries.append((where, nc, tt, ct, fname))
+        out += [f"## {title} — {total:.2f} s profiled", "", "Top functions by own time:", "",
+                "| function | calls | own | cum |", "|---|---:|---:|---:|"]
+        for where, nc, tt, ct, _ in sorted(entries, key=lambda e: -e[2])[:15]:
+            out.append(f"| `{where}` | {nc} | {fs(tt)} | {fs(ct)} |")
+        out += ["", "figkit functions by cumulative time:", "",
+                "| function | calls | own | cum |", "|---|---:|---:|---:|"]
+        mine = [e for e in entries if "/figkit/" in e[4] and "benchmarks" not in e[4]]
+        for where, nc, tt, ct, _ in sorted(mine, key=lambda e: -e[3])[:15]:
+            out.append(f"| `{where}` | {nc} | {fs(tt)} | {fs(ct)} |")
+        out.append("")
+    return "\n".join(out)
+
+
+def details_table(details: dict) -> list[str]:
+    out = ["| case | best run | runs | imports | child CPU (all runs) | child peak RSS | stages of the best run (figkit) |",
+           "|---|---:|---|---:|---:|---:|---|"]
+    for name, d in details.items():
+        if "error" in d or "reason" in d:
+            out.append(f"| {name} | — | {d.get('error') or d.get('reason')} | | | | |")
+            continue
+        times = d.get("times") or d.get("read_times")
+        runs = ", ".join(fs(t) for t in times) if times else ""
+        extra = ""
+        if "stages" in d:
+            extra = "; ".join(f"{k} {fs(v)}" for k, v in sorted(d["stages"].items(), key=lambda kv: -kv[1]))
+            extra += f"; files {', '.join(f'{k} {fb(v)}' for k, v in d['files'].items())}; drawn as {d.get('drawing')}"
+        elif "agg_s" in d:
+            extra = f"read {fs(d['read_s'])} (runs {runs}); in-memory factorize + bincount {fs(d['agg_s'])}"
+            runs = ", ".join(fs(t) for t in d["agg_times"])
+        elif "baseline_s" in d:
+            extra = (f"groupby().mean() {fs(d['baseline_s'])}; fit_line ×12 on pre-split arrays "
+                     f"{fs(d['fit_only_s'])} (runs {', '.join(fs(t) for t in d['fit_only_times'])}); "
+                     f"pandas split alone {fs(d['split_s'])}")
+        elif "extra_peak_bytes" in d:
+            extra = (f"extra peak RSS {fb(d['extra_peak_bytes'])} (data {fb(d['data_bytes'])}; "
+                     f"peak reset {'ok' if d['peak_reset'] else 'unavailable'})")
+        elif "pdf_bytes" in d:
+            extra = f"PDF {fb(d['pdf_bytes'])}"
+        imp = fs(d["import_s"]) if "import_s" in d else ""
+        out.append(f"| {name} | {fs(d['seconds'])} | {runs} | {imp} | {fs(d.get('cpu_s'))} | {fb(d.get('child_peak_bytes'))} | {extra} |")
+    return out
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="small sizes, one run each (smoke test)")
+    ap.add_argument("--big", action="store_true", help="also try 1e8 rows (needs ~18 GiB free)")
+    ap.add_argument("--profile", action="store_true", help="cProfile slow cases into PROFILE.md")
+    ap.add_argument("--keep", metavar="DIR", help="keep (and reuse) generated data in DIR")
+    ap.add_argument("--only", default="1,2,3,4", help="comma list of benchmarks (5 runs with 2)")
+    ap.add_argument("--out", default=str(HERE / "RESULTS.md"), help="where the table goes")
+    ns = ap.parse_args(argv)
+    sz = QUICK if ns.quick else FULL
+    only = set(ns.only.replace("5", "2").split(","))
+    work = Path(ns.keep) if ns.keep else Path(tempfile.mkdtemp(prefix="figkit-bench-"))
+    work.mkdir(parents=True, exist_ok=True)
+    t_start = time.perf_counter()
+    load_start = os.getloadavg()
+    started = dt.datetime.now().isoformat(timespec="seconds")
+    rows, details, data_log, profiles = [], {}, {}, {} if ns.profile else None
+    try:
+        if "1" in only:
+            print("1. scatter ...", flush=True)
+            bench_scatter(sz, work, rows, details, data_log, profiles)
+        if "2" in only:
+            print("2/5. density and growth ...", flush=True)
+            bench_density(sz, work, rows, details, data_log, profiles, ns.big)
+        if "3" in only:
+            print("3. line fits ...", flush=True)
+            bench_fits(sz, work, rows, details, data_log, profiles)
+        if "4" in only:
+            print("4. LOESS ...", flush=True)
+            bench_loess(sz, work, rows, details)
+        profile_text = profile_report(profiles) if ns.profile else None
+    finally:
+        if not ns.keep:
+            shutil.rmtree(work, ignore_errors=True)
+    total = time.perf_counter() - t_start
+
+    v = versions()
+    try:
+        cpus = len(os.sched_getaffinity(0))
+    except AttributeError:
+        cpus = os.cpu_count()
+    blas_env = {k: os.environ[k] for k in sorted(os.environ) if k.startswith(("OPENBLAS", "OMP_", "MKL_"))}
+    lines = [
+        "# figkit benchmarks", "",
+        f"- run: started {started}, mode: {'quick' if ns.quick else 'full'}"
+        f"{', big' if ns.big else ''}; whole run {total:.0f} s",
+        f"- machine: {cpu_model()}, {cpus} CPUs usable (os.cpu_count() = {os.cpu_count()}), "
+        f"{platform.system()} {platform.release()}; load average (1 min) {load_start[0]:.2f} at start, "
+        f"{os.getloadavg()[0]:.2f} at end (other work on the machine disturbs wall times)",
+        f"- OPENBLAS_CORETYPE: {os.environ.get('OPENBLAS_CORETYPE', 'unset')}; other BLAS/OpenMP settings: "
+        f"{', '.join(f'{k}={x}' for k, x in blas_env.items() if k != 'OPENBLAS_CORETYPE') or 'none'}",
+        f"- versions: python {v['python']}, numpy {v['numpy']}, pandas {v['pandas']}, "
+        f"matplotlib {v['matplotlib']}, pyarrow {v['pyarrow']}, figkit {v['figkit']} ({git_state()})",
+        f"- every case in a fresh process; time.perf_counter; best of 3 when a run takes < {SHORT_S:.0f} s "
+        "(else 1 run; --quick: 1 run); imports not timed (listed below)",
+        "- ratio = figkit / baseline (time or size). Data reading: included on both sides in 1, 2a and 5 "
+        "(the same CSV, the same pandas.read_csv call); excluded on both sides in 2b, 3 and 4",
+        "- figkit writes PDF + PNG (600 dpi) and the sidecar; the plain script (1) writes the PDF only",
+        "",
+        "| benchmark | size | figkit | baseline | ratio | target | met? |",
+        "|---|---|---|---|---|---|---|",
+    ]
+    lines += ["| " + " | ".join(r) + " |" for r in rows]
+    lines += ["", "## Details", ""]
+    lines += details_table(details)
+    if data_log:
+        lines += ["", "Data written: " + "; ".join(
+            f"{k} rows {fb(d['bytes'])} CSV in {fs(d['seconds'])}" for k, d in data_log.items())]
+    text = "\n".join(lines) + "\n"
+    out = Path(ns.out)
+    out.write_text(text, encoding="utf-8")
+    out.with_suffix(".json").write_text(
+        json.dumps({"rows": rows, "details": details}, indent=1, default=str), encoding="utf-8")
+    if profile_text:
+        out.with_name("PROFILE.md").write_text(profile_text, encoding="utf-8")
+    print(text)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
