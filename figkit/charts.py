@@ -11,14 +11,13 @@ Its requirements (which fields, options) live in :data:`figkit.spec.CHARTS`.
 """
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
 from . import stats
-from .aggregate import HexGrid
+from .aggregate import HexGrid, padded_range
 from .data import FigureData, Panel
 from .spec import FigureSpec
 from .style import pt_to_mm
@@ -75,15 +74,6 @@ def cue_dashes(ctx: "Context") -> dict:
 def _values(panels: list[Panel], col: str) -> np.ndarray:
     arrays = [p.frame[col].to_numpy(dtype=float) for p in panels if p.n]
     return np.concatenate(arrays) if arrays else np.array([], dtype=float)
-
-
-def _padded(lo: float, hi: float, frac: float = 0.04) -> tuple[float, float]:
-    if not np.isfinite(lo) or not np.isfinite(hi):
-        return 0.0, 1.0
-    if hi <= lo:
-        return lo - 0.5, hi + 0.5
-    pad = (hi - lo) * frac
-    return lo - pad, hi + pad
 
 
 def _groups(panel: Panel, ctx: Context):
@@ -202,8 +192,8 @@ def prepare_scatter(ctx: Context) -> None:
     from its densest panel, so every panel reads the same way)."""
     spec, panels = ctx.spec, ctx.data.panels
     x, y = _values(panels, spec.x), _values(panels, spec.y)
-    ctx.shared["xlim"] = _padded(np.nanmin(x), np.nanmax(x)) if x.size else (0, 1)
-    ctx.shared["ylim"] = _padded(np.nanmin(y), np.nanmax(y)) if y.size else (0, 1)
+    ctx.shared["xlim"] = padded_range(np.nanmin(x), np.nanmax(x)) if x.size else (0, 1)
+    ctx.shared["ylim"] = padded_range(np.nanmin(y), np.nanmax(y)) if y.size else (0, 1)
     marker_mm = pt_to_mm(float(spec.style.rc.get("lines.markersize", 2.5)))
     cells = (max(1, int(ctx.panel_mm[0] / marker_mm)), max(1, int(ctx.panel_mm[1] / marker_mm)))
     forced = spec.options.get("points", "auto")
@@ -224,8 +214,8 @@ def prepare_scatter(ctx: Context) -> None:
             py = py + rng.uniform(-jitter["y"], jitter["y"], size=len(py))
         coords[id(p)] = (px, py)
         if p.n:
-            xl = _padded(px.min(), px.max()) if spec.scales in ("free", "free-x") else ctx.shared["xlim"]
-            yl = _padded(py.min(), py.max()) if spec.scales in ("free", "free-y") else ctx.shared["ylim"]
+            xl = padded_range(px.min(), px.max()) if spec.scales in ("free", "free-x") else ctx.shared["xlim"]
+            yl = padded_range(py.min(), py.max()) if spec.scales in ("free", "free-y") else ctx.shared["ylim"]
             densest = max(densest, int(_cell_counts(px, py, xl, yl, cells).max()))
     mode, alpha = choose_drawing(densest, "auto" if forced == "jitter" else forced)
     if jitter and mode != "bins":
@@ -289,8 +279,8 @@ def prepare_hexbins(ctx: Context) -> None:
     else:
         if "xlim" not in ctx.shared:
             x, y = _values(panels, spec.x), _values(panels, spec.y)
-            ctx.shared["xlim"] = _padded(np.nanmin(x), np.nanmax(x)) if x.size else (0, 1)
-            ctx.shared["ylim"] = _padded(np.nanmin(y), np.nanmax(y)) if y.size else (0, 1)
+            ctx.shared["xlim"] = padded_range(np.nanmin(x), np.nanmax(x)) if x.size else (0, 1)
+            ctx.shared["ylim"] = padded_range(np.nanmin(y), np.nanmax(y)) if y.size else (0, 1)
         grid = HexGrid(*ctx.shared["xlim"], *ctx.shared["ylim"], int(spec.options.get("cells", 30)))
     ctx.shared["hex_grid"] = grid
     ctx.shared["hex_collections"] = []
@@ -349,7 +339,7 @@ def finish_hexbins(ctx: Context) -> None:
 def prepare_groups_y(ctx: Context) -> None:
     spec, panels = ctx.spec, ctx.data.panels
     y = _values(panels, spec.y)
-    ctx.shared["ylim"] = _padded(np.nanmin(y), np.nanmax(y)) if y.size else (0, 1)
+    ctx.shared["ylim"] = padded_range(np.nanmin(y), np.nanmax(y)) if y.size else (0, 1)
     ctx.shared["xlevels"] = _levels(ctx, spec.x)
 
 
@@ -430,7 +420,7 @@ def prepare_density(ctx: Context) -> None:
     x = _values(panels, spec.x)
     lo, hi = (np.nanmin(x), np.nanmax(x)) if x.size else (0.0, 1.0)
     ctx.shared["grid"] = np.linspace(lo, hi, 256)   # shared grid; curves stop at the data range
-    ctx.shared["xlim"] = _padded(lo, hi)
+    ctx.shared["xlim"] = padded_range(lo, hi)
 
 
 def draw_density(ax, panel: Panel, ctx: Context) -> dict:

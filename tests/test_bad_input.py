@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from conftest import REPO, make_demo_data, snakemake
+from conftest import make_demo_data, snakemake
 
 HEADER = ["id", "dataset", "chart", "x", "y", "colour", "weight", "strata", "trend", "scales",
           "filter", "bands", "size", "options"]
@@ -124,7 +124,8 @@ def test_bad_config_is_one_line(project, tmp_path):
 def test_repeated_id_is_reported(project):
     write_sheet(project, GOOD, dict(GOOD))
     proc = run_render(project, "good")
-    # the first row builds; the repeated one is named with both row numbers
+    assert proc.returncode == 0, proc.stderr   # the first row builds
+    # the repeated one is named with both row numbers
     lines = (project / "config" / "figures.tsv").read_text().splitlines()
     assert len(lines) == 3
     from figkit.sheet import read_sheet

@@ -5,11 +5,9 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
-from pathlib import Path
 
-import pytest
 
-from conftest import REPO, snakemake
+from conftest import snakemake
 
 
 def test_init_scaffold_builds_without_copying_code(tmp_path):

@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 
 from figkit import data as D
-from figkit.aggregate import HexGrid, padded_range
+from figkit.aggregate import HexGrid
 from figkit.sheet import check_row, validate_config
 from figkit.spec import build_spec
 from figkit.stats import fit_line
@@ -79,7 +79,7 @@ def test_streamed_equals_in_memory(tmp_path, monkeypatch, fmt, chart):
 
 
 def test_small_files_and_other_charts_stay_in_memory(tmp_path):
-    path = _project(tmp_path, "csv")
+    _project(tmp_path, "csv")
     spec = _spec(tmp_path, "data/points.csv", chart="scatter", x="x", y="y")
     assert not D.should_stream(spec, 0)                  # scatter needs the points themselves
     spec = _spec(tmp_path, "data/points.csv", chart="hexbins", x="x", y="y")
@@ -90,7 +90,6 @@ def test_small_files_and_other_charts_stay_in_memory(tmp_path):
 def test_streamed_figure_equals_in_memory_figure(tmp_path, monkeypatch, chart):
     """Rendered end to end: the same sidecar numbers and the same pixels (RMS as matplotlib's
     testing module computes it) whichever path read the data."""
-    import json
     from matplotlib.testing.compare import calculate_rms
     from PIL import Image
     from figkit.render import load_project, render
