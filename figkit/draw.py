@@ -329,9 +329,10 @@ def _legend_handles(ctx: Context, spec: FigureSpec) -> list:
 
 
 def _margins(spec: FigureSpec, *, title_lines: int, ytick_w: float, xtick_h: float,
-             legend_w: float, xtitle_lines: int, ytitle_lines: int) -> L.Margins:
+             legend_w: float, xtitle_lines: int, ytitle_lines: int, note: bool = False) -> L.Margins:
     st = spec.style
     line = L.text_mm(st.base_pt)
+    note_h = L.text_mm(st.tick_pt) + 0.4 if note else 0.0
     tick = _tick_mm(spec)
     free_x = spec.scales in ("free", "free-x")
     free_y = spec.scales in ("free", "free-y")
@@ -340,7 +341,7 @@ def _margins(spec: FigureSpec, *, title_lines: int, ytick_w: float, xtick_h: flo
         left=(line * ytitle_lines + 0.8 if ytitle_lines else 0.6) + ytick_w + tick + 0.3,
         right=1.2 + legend_w + header,
         top=0.8 + header,
-        bottom=(line * xtitle_lines + 0.6 if xtitle_lines else 0.6) + xtick_h + tick,
+        bottom=(line * xtitle_lines + 0.6 if xtitle_lines else 0.6) + xtick_h + tick + note_h,
         title=L.text_mm(st.title_pt, title_lines) + 0.9 if title_lines else 0.0,
         hgap=st.gap_mm + (ytick_w + tick if free_y else 0.0),
         vgap=st.gap_mm * 0.8 + (xtick_h + tick if free_x else 0.0),
@@ -405,8 +406,10 @@ def _pin_ticks(fig) -> None:
 
 # ---------------------------------------------------------------------------- the figure
 
-def build_figure(spec: FigureSpec, data: FigureData):
-    """Draw the figure; returns (figure, record) where record holds layout and per-panel numbers."""
+def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
+    """Draw the figure; returns (figure, record) where record holds layout and per-panel numbers.
+    ``note`` is one line of small print under the x title (the strata comparison, when the house
+    style asks for it)."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
@@ -430,7 +433,8 @@ def build_figure(spec: FigureSpec, data: FigureData):
 
     def margins(legend_w, ytick_w=est_y, xtick_h=est_x):
         return _margins(spec, title_lines=lines["title"], ytick_w=ytick_w, xtick_h=xtick_h,
-                        legend_w=legend_w, xtitle_lines=lines["x"], ytitle_lines=lines["y"])
+                        legend_w=legend_w, xtitle_lines=lines["x"], ytitle_lines=lines["y"],
+                        note=bool(note))
 
     def pick(m):
         try:
@@ -683,8 +687,13 @@ def build_figure(spec: FigureSpec, data: FigureData):
     gx1 = max(b[0] + b[2] for b in boxes)
     gy0 = min(b[1] for b in boxes)
     gy1 = max(b[1] + b[3] for b in boxes)
+    note_h = L.text_mm(st.tick_pt) + 0.4 if note else 0.0
+    if note:
+        fig.text(fx(gx0), fy(0.5), _fit_text(plain, note, gx1 - gx0, 1), fontsize=st.tick_pt,
+                 ha="left", va="bottom", color="#5A5F66")
     if xtitle:
-        fig.text(fx((gx0 + gx1) / 2), fy(0.5), _fit_text(plain, spec.axis_title(spec.x), gx1 - gx0, lines["x"]),
+        fig.text(fx((gx0 + gx1) / 2), fy(0.5 + note_h),
+                 _fit_text(plain, spec.axis_title(spec.x), gx1 - gx0, lines["x"]),
                  fontsize=st.base_pt, ha="center", va="bottom", linespacing=1.1)
     if ytitle:
         # Anchored before rotation: the text's top (its left side once turned) sits at 0.5 mm.

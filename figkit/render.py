@@ -131,16 +131,32 @@ def strata_comparison(spec: FigureSpec, data: FigureData) -> dict | None:
             "excluded": list(test.excluded)}
 
 
+def strata_note(test: dict | None) -> str | None:
+    """One line for the figure: do the slopes differ across panels?  p is printed to two
+    significant digits, and as "p < 0.001" below that (common reporting practice)."""
+    if not test or test["F"] is None:
+        return None
+    p = test["p"]
+    p_text = "p < 0.001" if p < 0.001 else f"p = {p:.2g}"
+    return (f"Equal slopes across panels: F({test['df_num']}, {test['df_den']}) = {test['F']:.2f}, "
+            f"{p_text}; pooled within-panel slope {test['pooled_slope']:.3g}, "
+            f"crude slope {test['crude_slope']:.3g}")
+
+
 def figure(row_or_id, project: Project | str | Path = "."):
     """Notebook API: the matplotlib Figure of one sheet row (by id, or a dict of cells)."""
     import matplotlib as mpl
     proj = project if isinstance(project, Project) else load_project(project)
     spec = proj.spec(row_or_id) if isinstance(row_or_id, str) else spec_from_cells(row_or_id, proj)
-    data = load_figure_data(spec)
+    data = load_figure_data(spec, stream_above_bytes=int(proj.config["stream_above_mb"] * 2 ** 20))
     from .draw import build_figure
     with mpl.rc_context(spec.style.rc):
-        fig, _ = build_figure(spec, data)
+        fig, _ = build_figure(spec, data, _note_for(spec, data))
     return fig
+
+
+def _note_for(spec: FigureSpec, data: FigureData) -> str | None:
+    return strata_note(strata_comparison(spec, data)) if spec.style.strata_note else None
 
 
 def rebuild_command(spec: FigureSpec, results: str) -> str:
@@ -160,12 +176,12 @@ def render(project: Project, figure_id: str) -> dict:
     row = find_row(project.rows, figure_id)
     row_json = json.dumps(row.cells, sort_keys=True, ensure_ascii=False)
 
+    strata = strata_comparison(spec, data)
     with mpl.rc_context(spec.style.rc):
-        fig, drawn = build_figure(spec, data)
+        fig, drawn = build_figure(spec, data, strata_note(strata) if spec.style.strata_note else None)
         sizes = enforce_minimums(fig, spec.style.min_text_pt, spec.style.min_line_pt,
                                  figure=spec.id, row=spec.row)
         stat_lines = panel_statistics(spec, data)
-        strata = strata_comparison(spec, data)
         panel_stats = {}
         for line in stat_lines:
             if line["group"] is None:

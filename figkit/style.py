@@ -45,6 +45,7 @@ class HouseStyle:
     strict: bool
     dpi: int
     min_colour_difference: float = 10.0   # CIEDE2000; ~10 is a rule of thumb (common practice)
+    strata_note: bool = False   # print the strata comparison under the figure
     diverging: str = "rdbu"  # used when a numeric colour field is given a centre value
     min_dpi: int = 500       # raster floor: 500-600 dpi for line art over halftone (journal guides)
 
@@ -113,4 +114,5 @@ def load_style(name: str, styles_dir: Path | str, extra_sizes: dict | None = Non
         sequential=str(data["sequential"]), letters=data["letters"], grid=data["grid"],
         strict=bool(data["strict"]), dpi=int(dpi or data["dpi"]),
         min_colour_difference=float(data.get("min_colour_difference", 10.0)),
-        min_dpi=int(mins.get("dpi", 500)), diverging=str(data.get("diverging", "rdbu")))
+        min_dpi=int(mins.get("dpi", 500)), diverging=str(data.get("diverging", "rdbu")),
+        strata_note=bool(data.get("strata_note", False)))
