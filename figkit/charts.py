@@ -218,7 +218,10 @@ def prepare_scatter(ctx: Context) -> None:
             yl = padded_range(py.min(), py.max()) if spec.scales in ("free", "free-y") else ctx.shared["ylim"]
             densest = max(densest, int(_cell_counts(px, py, xl, yl, cells).max()))
     mode, alpha = choose_drawing(densest, "auto" if forced == "jitter" else forced)
-    if jitter and mode != "bins":
+    if forced == "jitter":      # asked for: keep the points, at the opacity the density calls for
+        alpha = {"points": 1.0, "bins": MIN_ALPHA}.get(mode, alpha)
+        mode = "jitter"
+    elif jitter and mode != "bins":
         mode = "jitter"
     if mode == "bins" and spec.colour:
         mode, alpha = "translucent", MIN_ALPHA   # bins cannot show colour groups
