@@ -204,7 +204,7 @@ def prepare_scatter(ctx: Context) -> None:
             if gap is not None:
                 jitter[axis] = 0.4 * gap   # < half the gap: a point never reaches the next value
     rng = np.random.default_rng(JITTER_SEED)
-    coords, densest = {}, 0
+    coords, densest, own = {}, 0, {}
     for p in panels:
         px = p.frame[spec.x].to_numpy(dtype=float)
         py = p.frame[spec.y].to_numpy(dtype=float)
@@ -216,7 +216,8 @@ def prepare_scatter(ctx: Context) -> None:
         if p.n:
             xl = padded_range(px.min(), px.max()) if spec.scales in ("free", "free-x") else ctx.shared["xlim"]
             yl = padded_range(py.min(), py.max()) if spec.scales in ("free", "free-y") else ctx.shared["ylim"]
-            densest = max(densest, int(_cell_counts(px, py, xl, yl, cells).max()))
+            own[id(p)] = int(_cell_counts(px, py, xl, yl, cells).max())
+            densest = max(densest, own[id(p)])
     mode, alpha = choose_drawing(densest, "auto" if forced == "jitter" else forced)
     if forced == "jitter":      # asked for: keep the points, at the opacity the density calls for
         alpha = {"points": 1.0, "bins": MIN_ALPHA}.get(mode, alpha)
@@ -228,15 +229,17 @@ def prepare_scatter(ctx: Context) -> None:
         ctx.cautions.append("points too dense for colour groups: drawn at the lowest opacity; "
                             "consider splitting by the colour field instead")
     ctx.shared.update(mode=mode, alpha=alpha, cells=cells, densest=densest, jitter=jitter,
-                      coords=coords)
+                      coords=coords, own_densest=own)
     if mode == "bins":
         prepare_hexbins(ctx)
 
 
 def draw_scatter(ax, panel: Panel, ctx: Context) -> dict:
     spec, sh = ctx.spec, ctx.shared
-    rec = {"drawing": sh["mode"], "max_per_cell": sh["densest"],
-           "cells": list(sh["cells"])}
+    # One choice per figure (from its densest panel) so panels read alike; each panel's own
+    # densest marker-sized cell is recorded beside it.
+    rec = {"drawing": sh["mode"], "max_per_cell": sh["own_densest"].get(id(panel), 0),
+           "figure_max_per_cell": sh["densest"], "cells": list(sh["cells"])}
     if sh["mode"] == "bins":
         rec.update(draw_hexbins(ax, panel, ctx))
         return rec
