@@ -126,6 +126,15 @@ class FigureData:
     streamed: dict | None = None  # set when the data were read chunk by chunk
 
 
+def _factorized(values: pd.Series, fld: str, spec: FigureSpec) -> tuple[np.ndarray, list]:
+    """(code of each row's value in the panel order, the ordered values): one hashing pass."""
+    codes, uniques = pd.factorize(values, sort=False)
+    levels = level_order(pd.Series(uniques, dtype=values.dtype), fld, spec)
+    position = {v: i for i, v in enumerate(levels)}
+    remap = np.array([position[u] for u in uniques], dtype=np.int64)
+    return remap[codes], levels
+
+
 def _json_value(v):
     if isinstance(v, np.generic):
         return v.item()
@@ -202,29 +211,34 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
         frame = frame.loc[has_strata]
     panels: list[Panel] = []
     grid_levels: tuple = ()
-
-    def make(keys: dict, part: pd.DataFrame, label: str, cell=None) -> Panel:
-        complete = part[used].notna().all(axis=1) if used else pd.Series(True, index=part.index)
-        return Panel(label, {k: _json_value(v) for k, v in keys.items()},
-                     part.loc[complete, used].reset_index(drop=True), int((~complete).sum()), cell)
-
     if not spec.strata:
-        panels.append(make({}, frame, ""))
+        keys_list, labels, cells, codes = [{}], [""], [None], np.zeros(len(frame), dtype=np.int64)
     elif len(spec.strata) == 1:
         fld = spec.strata[0]
-        groups = dict(iter(frame.groupby(fld, sort=False, observed=True)))
-        for level in level_order(frame[fld], fld, spec):
-            panels.append(make({fld: level}, groups[level], str(level)))
+        codes, levels_ = _factorized(frame[fld], fld, spec)
+        keys_list, labels, cells = [{fld: v} for v in levels_], [str(v) for v in levels_], None
     else:
         rf, cf = spec.strata
-        rlev, clev = level_order(frame[rf], rf, spec), level_order(frame[cf], cf, spec)
-        groups = dict(iter(frame.groupby([rf, cf], sort=False, observed=True)))
-        empty = frame.iloc[0:0]
-        for i, rv in enumerate(rlev):
-            for j, cv in enumerate(clev):
-                part = groups.get((rv, cv), empty)
-                panels.append(make({rf: rv, cf: cv}, part, f"{rv} / {cv}", (i, j)))
+        rcodes, rlev = _factorized(frame[rf], rf, spec)
+        ccodes, clev = _factorized(frame[cf], cf, spec)
+        codes = rcodes * len(clev) + ccodes
+        keys_list = [{rf: rv, cf: cv} for rv in rlev for cv in clev]
+        labels = [f"{rv} / {cv}" for rv in rlev for cv in clev]
+        cells = [(i, j) for i in range(len(rlev)) for j in range(len(clev))]
         grid_levels = (rlev, clev)
+    # One pass for every panel (no DataFrame copy per panel): drop incomplete rows once,
+    # counting them per panel, then one stable sort by panel so each panel is a slice.
+    k = len(keys_list)
+    complete = frame[used].notna().all(axis=1).to_numpy() if used else np.ones(len(frame), bool)
+    dropped = np.bincount(codes[~complete], minlength=k)
+    codes = codes[complete]
+    order = np.argsort(codes.astype(np.int16 if k < 2 ** 15 else np.int64), kind="stable")
+    ordered = frame[used].take(np.flatnonzero(complete)[order]).reset_index(drop=True)
+    bounds = np.searchsorted(codes[order], np.arange(k + 1))
+    for i in range(k):
+        panels.append(Panel(labels[i], {f: _json_value(v) for f, v in keys_list[i].items()},
+                            ordered.iloc[bounds[i]:bounds[i + 1]], int(dropped[i]),
+                            cells[i] if cells else None))
 
     root = rel_to or spec.root
     try:
