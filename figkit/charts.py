@@ -214,8 +214,8 @@ def prepare_scatter(ctx: Context) -> None:
             py = py + rng.uniform(-jitter["y"], jitter["y"], size=len(py))
         coords[id(p)] = (px, py)
         if p.n:
-            xl = padded_range(px.min(), px.max()) if spec.scales in ("free", "free-x") else ctx.shared["xlim"]
-            yl = padded_range(py.min(), py.max()) if spec.scales in ("free", "free-y") else ctx.shared["ylim"]
+            xl = padded_range(px.min(), px.max()) if spec.ranges in ("own", "own-x") else ctx.shared["xlim"]
+            yl = padded_range(py.min(), py.max()) if spec.ranges in ("own", "own-y") else ctx.shared["ylim"]
             own[id(p)] = int(_cell_counts(px, py, xl, yl, cells).max())
             densest = max(densest, own[id(p)])
     mode, alpha = choose_drawing(densest, "auto" if forced == "jitter" else forced)
@@ -425,8 +425,12 @@ def prepare_density(ctx: Context) -> None:
     spec, panels = ctx.spec, ctx.data.panels
     x = _values(panels, spec.x)
     lo, hi = (np.nanmin(x), np.nanmax(x)) if x.size else (0.0, 1.0)
-    ctx.shared["grid"] = np.linspace(lo, hi, 256)   # shared grid; curves stop at the data range
-    ctx.shared["xlim"] = padded_range(lo, hi)
+    # The shared grid runs three bandwidths past the data, where a Gaussian kernel has all but
+    # 0.3% of its mass, so no curve is cut off with a vertical edge at the range's end.
+    h = stats.kde_bandwidth(x, _bandwidth_rule(spec.options.get("bandwidth", "scott"))) \
+        if x.size > 1 and np.ptp(x) > 0 else 0.0
+    ctx.shared["grid"] = np.linspace(lo - 3 * h, hi + 3 * h, 384)
+    ctx.shared["xlim"] = padded_range(lo - 3 * h, hi + 3 * h, 0.0)
 
 
 def draw_density(ax, panel: Panel, ctx: Context) -> dict:

@@ -152,11 +152,11 @@ orders:
 """
 
 SCAFFOLD_SHEET = [
-    ["id", "dataset", "chart", "x", "y", "colour", "strata", "trend", "size", "caption"],
-    ["oxygen-by-land-use", "readings", "scatter", "water_temp_c", "dissolved_oxygen_mgl", "",
+    ["id", "dataset", "chart", "x", "y", "colour", "weight", "strata", "trend", "size", "caption"],
+    ["oxygen-by-land-use", "readings", "scatter", "water_temp_c", "dissolved_oxygen_mgl", "", "",
      "land_use", "line", "full", "Dissolved oxygen falls as water warms, at every land use."],
-    ["taxa-by-season", "surveys", "count-bars", "taxon_group", "", "season", "", "", "full",
-     "Invertebrates counted per taxon group and season."],
+    ["taxa-by-season", "surveys", "count-bars", "taxon_group", "", "season", "count", "", "", "full",
+     "Invertebrates counted per taxon group and season (sum of the count column)."],
 ]
 
 

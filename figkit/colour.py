@@ -21,7 +21,6 @@ from __future__ import annotations
 
 import os
 import re
-import tempfile
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -607,7 +606,7 @@ def assign_categories(categories: Sequence, palette_name: str,
                   f"after the pinned ones")
         raise FigkitError(f"{counts}; split the field into panels (small multiples) "
                           f"rather than adding colours readers cannot tell apart",
-                          field="categories")
+                          field="colour")
     given = dict(zip(todo, free))
     return {c: pins[c] if c in pins else given[c] for c in cats}
 
@@ -615,15 +614,11 @@ def assign_categories(categories: Sequence, palette_name: str,
 # --------------------------------------------------------------------------- swatch sheet
 
 def _save_atomic(fig, path: Path, **kwargs) -> None:
-    """Write to a temporary file beside ``path`` and rename it into place."""
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    os.close(fd)
-    try:
+    """Write to a temporary file beside ``path`` and rename it into place (the same mechanism
+    as every figure: :func:`figkit.provenance.atomic_outputs`)."""
+    from .provenance import atomic_outputs
+    with atomic_outputs([path]) as (tmp,):
         fig.savefig(tmp, **kwargs)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
 
 
 def _short_citation(source: str) -> str:

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import hashlib
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -124,6 +124,7 @@ class FigureData:
     n_unassigned: int             # rows whose strata value is missing
     grid_levels: tuple = ()       # two-way grid: (row levels, col levels)
     streamed: dict | None = None  # set when the data were read chunk by chunk
+    present: dict = field(default_factory=dict)   # colour field -> values kept by the filter
 
 
 def _factorized(values: pd.Series, fld: str, spec: FigureSpec) -> tuple[np.ndarray, list]:
@@ -144,7 +145,8 @@ def _json_value(v):
 def _check_kind(frame: pd.DataFrame, field: str, need: str, spec: FigureSpec, role: str) -> None:
     s = frame[field]
     if need == NUMERIC and not pd.api.types.is_numeric_dtype(s):
-        sample = ", ".join(map(str, pd.unique(s.dropna())[:3]))
+        bad = s[pd.to_numeric(s, errors="coerce").isna() & s.notna()]
+        sample = ", ".join(repr(v) for v in pd.unique(bad)[:3])
         raise spec.err(f"{role} field '{field}' must be numeric for chart '{spec.chart.name}'",
                        field=role, value=f"{field} holds text such as {sample}",
                        allowed="a numeric column")
@@ -172,20 +174,21 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
         frame[banding.name] = apply_banding(frame[banding.source], banding)
 
     # Colour levels are taken before the filter so that a category keeps its colour in every
-    # figure of the dataset, whatever the figure keeps.
+    # figure of the dataset, whatever the figure keeps.  A numeric colour field with few distinct
+    # values (a year, a dose level) is shown as categories unless the row gives a centre value.
     levels = {}
-    cat_fields = [(spec.colour, "colour")] if spec.colour else []
-    if spec.chart.x == CATEGORY:
-        cat_fields.append((spec.x, "x"))
-    if spec.chart.y == CATEGORY:
-        cat_fields.append((spec.y, "y"))
-    for fld, _ in cat_fields:
-        if not (fld == spec.colour and pd.api.types.is_numeric_dtype(frame[fld]) and
-                not isinstance(frame[fld].dtype, pd.CategoricalDtype) and frame[fld].nunique() > 12):
-            levels[fld] = level_order(frame[fld], fld, spec)
-
+    colour_is_category = False
+    if spec.colour:
+        s_col = frame[spec.colour]
+        numeric = pd.api.types.is_numeric_dtype(s_col) and not isinstance(s_col.dtype, pd.CategoricalDtype)
+        colour_is_category = not numeric or (spec.options.get("centre") is None and s_col.nunique() <= 12)
+        if colour_is_category:
+            levels[spec.colour] = level_order(s_col, spec.colour, spec)
     if spec.filter is not None:
-        mask = spec.filter.evaluate(frame)
+        try:
+            mask = spec.filter.evaluate(frame)
+        except FigkitError as exc:
+            raise exc.at(row=spec.row, figure=spec.id, field="filter") from None
         frame = frame.loc[mask]
     n_kept = len(frame)
     if n_kept == 0:
@@ -201,6 +204,15 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
         if (frame[spec.weight].dropna() < 0).any():
             raise spec.err("weight field has negative values", field="weight", value=spec.weight,
                            allowed="counts or other non-negative numbers")
+
+    # Axis groups and legend entries: only the values the figure keeps (a value the filter
+    # removed would otherwise read as a true zero).
+    present = {}
+    for fld, need in ((spec.x, spec.chart.x), (spec.y, spec.chart.y)):
+        if fld and need == CATEGORY:
+            levels[fld] = level_order(frame[fld], fld, spec)
+    if colour_is_category:
+        present[spec.colour] = level_order(frame[spec.colour], spec.colour, spec)
 
     used = [f for f in (spec.x, spec.y, spec.colour, spec.weight) if f]
     used = list(dict.fromkeys(used))
@@ -246,7 +258,9 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     except ValueError:  # a dataset outside the project folder: keep its name only
         rel = path.name
     inputs = [{"path": rel, "sha256": sha256_file(path)}]
-    return FigureData(panels, inputs, n_read, n_kept, levels, n_unassigned, grid_levels)
+    data = FigureData(panels, inputs, n_read, n_kept, levels, n_unassigned, grid_levels)
+    data.present = present
+    return data
 
 
 # ---------------------------------------------------------------------------- streaming path
@@ -334,17 +348,16 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     lo = {f: np.inf for f in used}
     hi = {f: -np.inf for f in used}
     seen: dict = {f: set() for f in strata}
-    sample, dtypes_checked = [], False
+    sample = []
     step, done = _progress_printer(path)
     for chunk, read in _prepared_chunks(spec, step):
         n_read += read
         n_kept += len(chunk)
-        if not dtypes_checked and len(chunk):
+        if len(chunk):   # every chunk: a bad value may sit anywhere in a big file
             for role, need in (("x", spec.chart.x), ("y", spec.chart.y)):
                 fld = getattr(spec, role)
                 if fld and need:
                     _check_kind(chunk, fld, need, spec, role)
-            dtypes_checked = True
         for f in used:
             v = chunk[f].to_numpy(dtype=float)
             if np.isfinite(v).any():

@@ -251,13 +251,13 @@ def _colour_setup(spec: FigureSpec, data: FigureData, ctx: Context) -> str | Non
     if spec.colour:
         if spec.colour in data.levels:
             pinned = spec.pinned.get(spec.colour)
-            present = data.levels[spec.colour]
+            present = data.present.get(spec.colour, data.levels[spec.colour])
             # Colours follow the project-wide order when config lists one (orders:), so a value
             # keeps its colour in every figure even where other values are absent.
             explicit = spec.orders.get(spec.colour) or []
             lookup = {str(v): v for v in present}
             full = [lookup.get(str(e), e) for e in explicit]
-            full += [v for v in present if str(v) not in {str(e) for e in explicit}]
+            full += [v for v in data.levels[spec.colour] if str(v) not in {str(e) for e in explicit}]
             try:
                 colours = assign_categories(full, spec.style.palette, pinned)
             except FigkitError as exc:
@@ -334,8 +334,8 @@ def _margins(spec: FigureSpec, *, title_lines: int, ytick_w: float, xtick_h: flo
     line = L.text_mm(st.base_pt)
     note_h = L.text_mm(st.tick_pt) + 0.4 if note else 0.0
     tick = _tick_mm(spec)
-    free_x = spec.scales in ("free", "free-x")
-    free_y = spec.scales in ("free", "free-y")
+    free_x = spec.ranges in ("own", "own-x")
+    free_y = spec.ranges in ("own", "own-y")
     header = L.text_mm(st.title_pt) * 2 + 1.2 if spec.grid else 0.0
     return L.Margins(
         left=(line * ytitle_lines + 0.8 if ytitle_lines else 0.6) + ytick_w + tick + 0.3,
@@ -472,8 +472,8 @@ def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
     fig = Figure(figsize=(mm_to_in(spec.width_mm), mm_to_in(height)), dpi=72)
     FigureCanvasAgg(fig)
 
-    share_x = spec.scales in ("shared", "free-y")
-    share_y = spec.scales in ("shared", "free-x")
+    share_x = spec.ranges in ("common", "own-y")
+    share_y = spec.ranges in ("common", "own-x")
     axes, records = [], []
     first = None
     for _ in panels:

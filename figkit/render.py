@@ -52,7 +52,8 @@ def spec_from_cells(cells: dict, project: Project | str | Path = ".") -> FigureS
 
 
 def _stat_line(panel, spec: FigureSpec, x, y) -> dict:
-    rec = {"n": len(x), "n_dropped": panel.n_dropped,
+    # n is the panel's rows drawn, also for charts with no numeric x (bars, shares, tiles)
+    rec = {"n": len(x) if len(x) or spec.chart.x == "numeric" else panel.n, "n_dropped": panel.n_dropped,
            "x_mean": float(np.mean(x)) if len(x) else None,
            "y_mean": float(np.mean(y)) if y is not None and len(y) else None,
            "slope": None, "slope_ci_low": None, "slope_ci_high": None, "intercept": None, "r": None}
@@ -164,7 +165,16 @@ def rebuild_command(spec: FigureSpec, results: str) -> str:
 
 
 def render(project: Project, figure_id: str) -> dict:
-    """Build one figure's files and sidecar under ``results/figures``; return the sidecar."""
+    """Build one figure's files and sidecar under ``results/figures``; return the sidecar.
+    Every mistake found on the way names the sheet row and the figure."""
+    row = find_row(project.rows, figure_id)
+    try:
+        return _render(project, figure_id)
+    except FigkitError as exc:
+        raise exc.at(row=row.number, figure=figure_id) from None
+
+
+def _render(project: Project, figure_id: str) -> dict:
     import matplotlib as mpl
     mpl.use("Agg", force=True)
     from .draw import build_figure
@@ -205,10 +215,18 @@ def render(project: Project, figure_id: str) -> dict:
         if judged and spec.style.strict:
             raise spec.err("colours too alike (strict house style): " + "; ".join(judged))
         cautions += collisions
-        if spec.scales != "shared" and len(data.panels) > 1 and spec.chart.name in (
+        if spec.ranges != "common" and len(data.panels) > 1 and spec.chart.name in (
                 "count-bars", "histogram", "density", "shares", "scatter", "hexbins", "box", "violin"):
-            cautions.append(f"scales are '{spec.scales}': panels have their own axis ranges, so "
+            cautions.append(f"ranges are '{spec.ranges}': panels have their own axis ranges, so "
                             "compare shapes within a panel, not heights across panels")
+        if spec.trend != "none" and spec.colour and spec.colour in data.levels:
+            cautions.append(f"one {spec.trend} trend per panel is fitted over all '{spec.colour}' "
+                            "groups together; it can differ from every group's own trend "
+                            "(see the per-group lines of the stats file)")
+        if spec.trend == "line":
+            cautions.append("confidence band, slope intervals and the strata F-test treat every "
+                            "row as independent; repeated readings of the same units (sites, "
+                            "patients) make them look more precise than they are")
         if spec.trend == "loess":
             cautions.append("LOESS shows a local average; its shape depends on the span "
                             f"({spec.options.get('span', 0.75)}) and says nothing about uncertainty")

@@ -101,7 +101,7 @@ class FigureSpec:
     weight: str | None
     strata: tuple[str, ...]           # () none, (f,) wrapped, (rows, cols) grid
     trend: str
-    scales: str
+    ranges: str                       # common | own | own-x | own-y
     filter: Expr | None
     bandings: tuple[Banding, ...]
     width_mm: float
@@ -158,7 +158,8 @@ def _parse_options(text: str | None, kind: ChartKind, err) -> dict:
         try:
             value = typ(raw)
         except ValueError:
-            raise err(f"option '{key}' needs a {typ.__name__}", field="options", value=raw,
+            what = {"float": "number", "int": "whole number"}.get(typ.__name__, typ.__name__)
+            raise err(f"option '{key}' needs a {what}", field="options", value=raw,
                       allowed=allowed) from None
         if isinstance(allowed, tuple) and value not in allowed:
             raise err(f"option '{key}' value not allowed", field="options", value=raw, allowed=allowed)
@@ -172,7 +173,9 @@ def _check_option_ranges(opts: dict, err) -> None:
               "cells": lambda v: 5 <= v <= 200, "whisker": lambda v: v > 0}
     for key, ok in checks.items():
         if key in opts and not ok(opts[key]):
-            raise err(f"option '{key}' out of range", field="options", value=opts[key])
+            limits = {"span": "0 < span <= 1", "robust": "0 to 5", "cells": "5 to 200",
+                      "whisker": "above 0"}[key]
+            raise err(f"option '{key}' out of range", field="options", value=opts[key], allowed=limits)
     for key in ("bandwidth", "bins"):
         v = opts.get(key)
         if v is None or v in ("scott", "silverman", "fd", "sturges"):
@@ -266,9 +269,19 @@ def build_spec(row: SheetRow, config: Config, columns: list[str] | None = None) 
         raise err("panel_columns applies to one wrapped strata field", field="panel_columns",
                   value=c["panel_columns"])
 
+    ranges = c.get("ranges", "common")
+    if kind.name in ("hexbins", "tiles") and ranges != "common":
+        raise err(f"chart '{kind.name}' counts on one lattice shared by every panel, so panels "
+                  "cannot have their own ranges", field="ranges", value=ranges, allowed=["common"])
     flt = _parse_filter(c["filter"], err) if c.get("filter") else None
     bandings = _bandings(c.get("bands"), config, err)
     options = _parse_options(c.get("options"), kind, err)
+    if options.get("interval") == "wilson" and c.get("weight"):
+        raise err("a Wilson interval needs counts of rows (independent units), not summed weights",
+                  field="options", value="interval=wilson", allowed="leave 'weight' empty, or no interval")
+    if options.get("centre") is not None and not c.get("colour"):
+        raise err("option 'centre' needs a numeric colour field", field="options",
+                  value=f"centre={options['centre']:g}", allowed="give 'colour' a numeric field")
     if trend == "loess" and "span" not in options:
         options["span"] = 0.75
 
@@ -276,7 +289,7 @@ def build_spec(row: SheetRow, config: Config, columns: list[str] | None = None) 
     spec = FigureSpec(
         id=fig, row=num, dataset=c["dataset"], data_path=data_path, chart=kind, x=c.get("x"),
         y=c.get("y"), colour=c.get("colour"), weight=c.get("weight"), strata=strata, trend=trend,
-        scales=c.get("scales", "shared"), filter=flt, bandings=bandings, width_mm=width,
+        ranges=ranges, filter=flt, bandings=bandings, width_mm=width,
         height_mm=float(c["height_mm"]) if c.get("height_mm") else None, columns=columns_fixed,
         style=style, options=options, caption=c.get("caption", ""), labels=labels,
         orders=dict(config.get("orders") or {}), pinned=dict(config.get("colours") or {}),

@@ -11,7 +11,7 @@ import pytest
 
 from conftest import make_demo_data, snakemake
 
-HEADER = ["id", "dataset", "chart", "x", "y", "colour", "weight", "strata", "trend", "scales",
+HEADER = ["id", "dataset", "chart", "x", "y", "colour", "weight", "strata", "trend", "ranges",
           "filter", "bands", "size", "options"]
 GOOD = dict(id="good", dataset="readings", chart="scatter", x="water_temp_c", y="dissolved_oxygen_mgl",
             strata="land_use")
@@ -45,8 +45,8 @@ CASES = {
                        ["row 3", "b13", "options", "smoothness", "points"]),
     "bad option value": (dict(GOOD, id="b14", trend="loess", options="span=2"),
                          ["row 3", "b14", "options", "span", "2"]),
-    "bad scales": (dict(GOOD, id="b15", scales="loose"),
-                   ["row 3", "b15", "scales", "'loose'", "free"]),
+    "bad ranges": (dict(GOOD, id="b15", ranges="loose"),
+                   ["row 3", "b15", "ranges", "'loose'", "own-y"]),
     "continuous field as categories": (dict(GOOD, id="b16", chart="box", x="conductivity_uscm",
                                             y="water_temp_c"),
                                        ["row 3", "b16", "field 'x'", "continuous", "band"]),

@@ -170,7 +170,7 @@ def test_too_narrow_message_names_the_sizes():
 
 LONG_GROUP = "a rather long catchment name number {}"
 LONG_SITE = "sampling site with a rather long name {}"
-HEADER = ["id", "dataset", "chart", "x", "y", "colour", "weight", "strata", "trend", "scales",
+HEADER = ["id", "dataset", "chart", "x", "y", "colour", "weight", "strata", "trend", "ranges",
           "filter", "bands", "size", "height_mm", "panel_columns", "style", "options", "caption"]
 KINDS = {
     "scatter": dict(x="v1", y="v2", colour="method"),
@@ -229,10 +229,10 @@ def make_project(root: Path, rows: list[dict], *, formats=("pdf",), dpi: int = 3
 TWO_ZONES = 'zone in ["zone 1", "zone 2"]'
 STRESS_ROWS = ([dict(id=f"many-{k}", dataset="obs", chart=k, strata="site", **v) for k, v in KINDS.items()] + [
     dict(id="two-way", dataset="obs", chart="scatter", x="v1", y="v2", strata="band by zone", trend="line"),
-    dict(id="free", dataset="obs", chart="scatter", x="v1", y="v2", strata="site", scales="free",
+    dict(id="free", dataset="obs", chart="scatter", x="v1", y="v2", strata="site", ranges="own",
          filter=TWO_ZONES),
     dict(id="free-bars", dataset="obs", chart="count-bars", x="group", colour="method", strata="site",
-         scales="free-y", filter=TWO_ZONES, size="one-and-half"),
+         ranges="own-y", filter=TWO_ZONES, size="one-and-half"),
 ])
 GOLDEN_ROWS = [
     dict(id="golden-wrap", dataset="obs", chart="count-bars", x="group", colour="method",
@@ -240,7 +240,7 @@ GOLDEN_ROWS = [
     dict(id="golden-grid", dataset="obs", chart="scatter", x="v1", y="v2", strata="band by zone",
          trend="line"),
     dict(id="golden-free", dataset="obs", chart="scatter", x="v1", y="v2", strata="zone",
-         scales="free", size="one-and-half"),
+         ranges="own", size="one-and-half"),
 ]
 PRESET_ROWS = [dict(id=f"size-{p}", dataset="obs", chart="histogram", x="v1", strata="zone", size=p)
                for p in PRESETS]

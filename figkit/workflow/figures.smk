@@ -20,28 +20,54 @@ FK_CONFIG = validate_config(config, ".")
 FK_ROWS = read_sheet(FK_CONFIG.sheet_path)
 FK_RESULTS = FK_CONFIG["results"]
 FK_FORMATS = FK_CONFIG["formats"]
-FK_BY_ID = {row.id: row for row in FK_ROWS}
+import re
+
+FK_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_-]*$")
+FK_BY_ID = {}
+for _row in FK_ROWS:
+    FK_BY_ID.setdefault(_row.id, _row)   # the first row of an id is the figure (render agrees)
+FK_TARGETS = [rid for rid in FK_BY_ID if FK_ID.match(rid)]
 
 
 def _row_inputs(wildcards):
-    """Dataset and style files of one figure; a row that cannot be read depends on nothing and
-    fails in its own job with its one-line message."""
-    row = FK_BY_ID[wildcards.id]
+    """Dataset and style files of one figure.  Files that do not exist are left out (a missing
+    input would stop every figure); the row's fingerprint then records the problem, so the job
+    reruns and fails alone with its one-line message."""
     try:
-        spec = build_spec(row, FK_CONFIG)
+        spec = build_spec(FK_BY_ID[wildcards.id], FK_CONFIG)
     except FigkitError:
         return []
-    return [str(spec.data_path)] + [str(p) for p in spec.style.files]
+    files = [spec.data_path, *spec.style.files]
+    return [str(p) for p in files if p.is_file()]
+
+
+def _fingerprint(wildcards):
+    row = FK_BY_ID[wildcards.id]
+    problem = ""
+    try:
+        spec = build_spec(row, FK_CONFIG)
+        missing = [str(p) for p in (spec.data_path, *spec.style.files) if not p.is_file()]
+        problem = ";".join(missing)
+    except FigkitError as exc:
+        problem = str(exc)
+    return fingerprint(row, FK_CONFIG) + (f":{problem}" if problem else "")
 
 
 for _row in FK_ROWS:
-    if _row.error is not None:
-        sys.stderr.write(f"figkit: {_row.error} (this figure will fail; the others build)\n")
+    if _row.error is None:
+        continue
+    if FK_BY_ID.get(_row.id) is not _row:
+        note = "this row is ignored; the first row with the id is built"
+    elif not FK_ID.match(_row.id):
+        note = "this row cannot be built; fix its id"
+    else:
+        note = "this figure will fail; the others build"
+    sys.stderr.write(f"figkit: {_row.error} ({note})\n")
 
 
 rule all_figures:
     input:
-        [f"{FK_RESULTS}/figures/{row.id}.json" for row in FK_ROWS],
+        [f"{FK_RESULTS}/figures/{rid}.json" for rid in FK_TARGETS],
 
 
 def _figure_outputs():
@@ -61,7 +87,7 @@ rule figure:
     output:
         _figure_outputs(),
     params:
-        fingerprint=lambda w: fingerprint(FK_BY_ID[w.id], FK_CONFIG),
+        fingerprint=_fingerprint,
         caption=lambda w: FK_BY_ID[w.id].cells.get("caption", ""),
         chart=lambda w: FK_BY_ID[w.id].cells.get("chart", ""),
     wildcard_constraints:
