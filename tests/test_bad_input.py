@@ -144,3 +144,32 @@ def test_one_bad_row_does_not_stop_the_others(project, tmp_path):
     assert (out / "good.png").is_file() and (out / "also-good.png").is_file()
     assert not list(out.glob("broken.*"))
     assert "no column 'no_such_field'" in proc.stdout + proc.stderr
+
+
+def test_missing_dataset_fails_alone_and_leaves_no_stale_figure(project, tmp_path):
+    """A typo in a dataset path must not keep old figures silently nor stop the others."""
+    root = tmp_path / "p"
+    shutil.copytree(project, root, symlinks=True)
+    write_sheet(root, GOOD, dict(GOOD, id="other", chart="hexbins"))
+    snakemake(root)
+    cfg = root / "config" / "config.yaml"
+    # point 'good' at a dataset name whose file does not exist
+    text = cfg.read_text()
+    cfg.write_text(text.replace("datasets:\n", "datasets:\n  typo: data/readingz.csv\n", 1))
+    write_sheet(root, dict(GOOD, dataset="typo"), dict(GOOD, id="other", chart="hexbins"))
+    proc = snakemake(root, "--keep-going", check=False)
+    out = root / "results" / "figures"
+    assert proc.returncode != 0
+    assert "dataset file not found" in proc.stdout + proc.stderr
+    assert not (out / "good.png").exists()          # the stale figure is not left in place
+    assert (out / "other.png").is_file()
+
+
+def test_repeated_id_edits_of_the_first_row_are_honoured(project, tmp_path):
+    root = tmp_path / "p"
+    shutil.copytree(project, root, symlinks=True)
+    write_sheet(root, GOOD, dict(GOOD, chart="hexbins"))
+    snakemake(root)
+    write_sheet(root, dict(GOOD, options="points=translucent"), dict(GOOD, chart="hexbins"))
+    proc = snakemake(root, "-n", "-p")
+    assert "--id good" in proc.stdout + proc.stderr
