@@ -291,7 +291,9 @@ def iter_chunks(path: Path, columns: list[str], rows: int = CHUNK_ROWS):
             import pyarrow.parquet as pq
         except ImportError:
             raise FigkitError("reading Parquet needs pyarrow: pip install pyarrow", value=str(path)) from None
-        for batch in pq.ParquetFile(path).iter_batches(batch_size=rows, columns=columns):
+        # pre_buffer=False: Arrow would otherwise keep every row group's buffers until the pass
+        # ends, and memory would grow with the file (measured in benchmarks/, case 7).
+        for batch in pq.ParquetFile(path, pre_buffer=False).iter_batches(batch_size=rows, columns=columns):
             yield batch.to_pandas()
         return
     try:
