@@ -29,8 +29,10 @@ Meaning, row by row (two-valued, so a filter always gives a plain true/false mas
 * a comparison or membership test that involves a missing value is false — for ``!=``
   and ``not in`` as well;
 * ``x is missing`` is true where ``x`` is NaN/None/NaT; ``x is not missing`` is its negation;
-* ``not``, ``and``, ``or`` act on those true/false results; a true/false column used as a
-  test counts a missing entry as false;
+* ``and`` and ``or`` act on those true/false results; ``not`` negates its test on rows
+  whose tested fields are all present and is false elsewhere, so ``not a == b`` means
+  ``a != b`` (a missing value passes no test, negated or not); a true/false column used as
+  a test counts a missing entry as false;
 * text compares with text (``<`` is code-point order), numbers with numbers, true/false
   with true/false (``==``/``!=`` only); a date/time column compares with a quoted date
   such as ``'2024-05-01'``.  Any other mix is an error that names the column and dtype.
@@ -513,6 +515,28 @@ class _Evaluator:
             return self.cache[node.name]
         return _Value("bool", self.test(node), None, "a true/false test")
 
+    def unknown(self, node) -> np.ndarray:
+        """Rows where a field compared inside ``node`` is missing ('is missing' tests excepted)."""
+        out = np.zeros(self.n, bool)
+        stack = [node]
+        while stack:
+            item = stack.pop()
+            if isinstance(item, _IsMissing):
+                continue
+            if isinstance(item, _Column):
+                miss = self.value(item).missing
+                if miss is not None:
+                    out |= np.asarray(miss, bool)
+            elif isinstance(item, _Compare):
+                stack += [item.left, item.right]
+            elif isinstance(item, _Member):
+                stack.append(item.operand)
+            elif isinstance(item, _Not):
+                stack.append(item.operand)
+            elif isinstance(item, _BoolOp):
+                stack += list(item.items)
+        return out
+
     def test(self, node) -> np.ndarray:
         """Per-row true/false result of a node; missing counts as false."""
         if isinstance(node, _BoolOp):
@@ -520,7 +544,9 @@ class _Evaluator:
             fn = np.logical_and if node.op == "and" else np.logical_or
             return fn.reduce(parts)
         if isinstance(node, _Not):
-            return ~self.test(node.operand)
+            # 'not' keeps only rows whose tested fields are all present, so 'not a == b' means
+            # the same as 'a != b' (a missing value never passes a test, negated or not).
+            return ~self.test(node.operand) & ~self.unknown(node.operand)
         if isinstance(node, _Compare):
             return self.compare(node)
         if isinstance(node, _Member):

@@ -134,10 +134,14 @@ def test_parentheses_change_the_result():
 
 
 def test_comparison_binds_tighter_than_not(small):
-    # 'not x > 3' is not (x > 3): x missing -> (x > 3) is false -> not gives true.
-    np.testing.assert_array_equal(evaluate_mask("not x > 3", small), [True, True, True, False, False])
+    # 'not x > 3' is not (x > 3); a missing x passes no test, negated or not (our rule), so
+    # 'not a == b' and 'a != b' agree row by row (reference: pandas' != with missing as false).
+    np.testing.assert_array_equal(evaluate_mask("not x > 3", small), [True, True, False, False, False])
     np.testing.assert_array_equal(evaluate_mask("not s in ['a']", small),
-                                  [False, True, True, True, True])
+                                  [False, True, False, True, True])
+    np.testing.assert_array_equal(evaluate_mask("not s == 'b'", small),
+                                  (small["s"].ne("b") & small["s"].notna()).to_numpy())
+    np.testing.assert_array_equal(evaluate_mask("not x is missing", small), small["x"].notna().to_numpy())
 
 
 def test_parenthesised_tests_compare_as_true_false(small):
