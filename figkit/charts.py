@@ -405,6 +405,10 @@ def draw_violin(ax, panel: Panel, ctx: Context) -> dict:
                 markeredgewidth=0.5, zorder=4)
         groups.append({"group": level, "n": len(v), "bandwidth": bw, "q1": q1, "median": med, "q3": q3})
     _category_axis(ax, levels)
+    sizes = [g["n"] for g in groups]
+    if sizes and max(sizes) > 10 * min(sizes):
+        ctx.cautions.append(f"panel '{panel.label or 'all'}': violins have the same width whatever "
+                            f"their size ({min(sizes)} to {max(sizes)} rows); see n per group in the sidecar")
     return {"groups": groups}
 
 

@@ -397,7 +397,8 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
         rule = int(float(rule)) if rule not in ("fd", "sturges") else rule
         # The rule's width from the sample; the edges span the full data range.
         width_edges = stats.bin_edges(pooled, rule)
-        k = max(1, int(round((hi[spec.x] - lo[spec.x]) / (width_edges[1] - width_edges[0]))))
+        # ceil, as numpy.histogram_bin_edges (and stats.bin_edges) count bins for a width
+        k = max(1, int(np.ceil((hi[spec.x] - lo[spec.x]) / (width_edges[1] - width_edges[0]) - 1e-9)))
         edges = np.linspace(lo[spec.x], hi[spec.x], k + 1) if isinstance(rule, str) else \
             np.linspace(lo[spec.x], hi[spec.x], rule + 1)
         if isinstance(rule, str):
