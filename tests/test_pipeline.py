@@ -168,3 +168,15 @@ def test_html_report_has_every_figure_and_its_caption(built_demo, tmp_path):
     for fid, caption in zip(sheet["id"], sheet["caption"]):
         assert f"{fid}.png" in html
         assert caption.split(" (")[0][:40] in html.replace("&#39;", "'")
+
+
+def test_fresh_clone_schedules_the_demo_data_first(tmp_path):
+    """On a fresh clone data/ does not exist yet: the demo-data rule must run before the figures
+    (a missing file that a rule makes is an input, not a failure)."""
+    from conftest import copy_project
+    project = copy_project(tmp_path / "fresh")
+    proc = snakemake(project, "-n", "-p")
+    text = proc.stdout + proc.stderr
+    assert "-m figkit.demo data" in text
+    sheet = pd.read_csv(project / "config" / "figures.tsv", sep="\t", dtype=str)
+    assert _scheduled(proc) == sorted(sheet["id"])
