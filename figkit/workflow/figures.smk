@@ -21,6 +21,7 @@ FK_ROWS = read_sheet(FK_CONFIG.sheet_path)
 FK_RESULTS = FK_CONFIG["results"]
 FK_FORMATS = FK_CONFIG["formats"]
 import re
+from pathlib import Path
 
 FK_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_-]*$")
 FK_BY_ID = {}
@@ -73,6 +74,20 @@ for _row in FK_ROWS:
     sys.stderr.write(f"figkit: {_row.error} ({note})\n")
 
 
+def _stamp(wildcards):
+    """A small file holding the row's fingerprint, rewritten only when the fingerprint changes.
+    As an input it makes Snakemake rerun the figure by modification time even where Snakemake
+    has no metadata for it (outputs made by `figkit render` by hand, a copied results folder)."""
+    path = Path(FK_RESULTS) / ".fingerprints" / wildcards.id
+    value = _fingerprint(wildcards)
+    if not path.is_file() or path.read_text(encoding="utf-8") != value:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = path.with_name(f".{path.name}.part")
+        tmp.write_text(value, encoding="utf-8")
+        tmp.replace(path)
+    return str(path)
+
+
 rule all_figures:
     input:
         [f"{FK_RESULTS}/figures/{rid}.json" for rid in FK_TARGETS],
@@ -92,6 +107,7 @@ def _figure_outputs():
 rule figure:
     input:
         _row_inputs,
+        _stamp,
     output:
         _figure_outputs(),
     params:
