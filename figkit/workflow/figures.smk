@@ -74,18 +74,26 @@ for _row in FK_ROWS:
     sys.stderr.write(f"figkit: {_row.error} ({note})\n")
 
 
-def _stamp(wildcards):
+def _write_stamp(rid: str) -> None:
     """A small file holding the row's fingerprint, rewritten only when the fingerprint changes.
     As an input it makes Snakemake rerun the figure by modification time even where Snakemake
-    has no metadata for it (outputs made by `figkit render` by hand, a copied results folder)."""
-    path = Path(FK_RESULTS) / ".fingerprints" / wildcards.id
-    value = _fingerprint(wildcards)
+    has no metadata for it (outputs made by `figkit render` by hand, a copied results folder).
+    Written while the workflow is read, before Snakemake looks at any file."""
+    path = Path(FK_RESULTS) / ".fingerprints" / rid
+    value = _fingerprint(type("W", (), {"id": rid})())
     if not path.is_file() or path.read_text(encoding="utf-8") != value:
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_name(f".{path.name}.part")
         tmp.write_text(value, encoding="utf-8")
         tmp.replace(path)
-    return str(path)
+
+
+for _rid in FK_TARGETS:
+    _write_stamp(_rid)
+
+
+def _stamp(wildcards):
+    return str(Path(FK_RESULTS) / ".fingerprints" / wildcards.id)
 
 
 rule all_figures:
