@@ -557,11 +557,9 @@ def _percent_fmt(v, _pos):
     return f"{v * 100:.0f}%"
 
 
-try:
-    from matplotlib.ticker import FuncFormatter
-    _percent = FuncFormatter(_percent_fmt)
-except ImportError:  # pragma: no cover
-    _percent = None
+from matplotlib.ticker import FuncFormatter  # noqa: E402 - matplotlib is always present
+
+_percent = FuncFormatter(_percent_fmt)
 
 
 def prepare_tiles(ctx: Context) -> None:

@@ -282,8 +282,6 @@ def build_spec(row: SheetRow, config: Config, columns: list[str] | None = None) 
     if options.get("centre") is not None and not c.get("colour"):
         raise err("option 'centre' needs a numeric colour field", field="options",
                   value=f"centre={options['centre']:g}", allowed="give 'colour' a numeric field")
-    if trend == "loess" and "span" not in options:
-        options["span"] = 0.75
 
     labels = {k: (v.get("label", k), v.get("unit", "")) for k, v in (config.get("fields") or {}).items()}
     spec = FigureSpec(

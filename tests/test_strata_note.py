@@ -1,7 +1,6 @@
 """The optional strata annotation (house style `strata_note: true`): the printed F, degrees of
 freedom and p are the sidecar's (whose values are checked against statsmodels' anova_lm in
 test_demo_references), and the line collides with no other text."""
-import json
 import shutil
 from pathlib import Path
 
