@@ -30,13 +30,25 @@ for _row in FK_ROWS:
 FK_TARGETS = [rid for rid in FK_BY_ID if FK_ID.match(rid)]
 
 
+_FK_SPECS = {}
+
+
+def _spec(rid):
+    """The row's spec, or its error, built once per workflow run (the style files are read once)."""
+    if rid not in _FK_SPECS:
+        try:
+            _FK_SPECS[rid] = build_spec(FK_BY_ID[rid], FK_CONFIG)
+        except FigkitError as exc:
+            _FK_SPECS[rid] = exc
+    return _FK_SPECS[rid]
+
+
 def _row_inputs(wildcards):
     """Dataset and style files of one figure.  Files that do not exist are left out (a missing
     input would stop every figure); the row's fingerprint then records the problem, so the job
     reruns and fails alone with its one-line message."""
-    try:
-        spec = build_spec(FK_BY_ID[wildcards.id], FK_CONFIG)
-    except FigkitError:
+    spec = _spec(wildcards.id)
+    if isinstance(spec, FigkitError):
         return []
     files = [spec.data_path, *spec.style.files]
     return [str(p) for p in files if _available(p)]
@@ -52,13 +64,11 @@ def _available(path) -> bool:
 
 def _fingerprint(wildcards):
     row = FK_BY_ID[wildcards.id]
-    problem = ""
-    try:
-        spec = build_spec(row, FK_CONFIG)
-        missing = [str(p) for p in (spec.data_path, *spec.style.files) if not _available(p)]
-        problem = ";".join(missing)
-    except FigkitError as exc:
-        problem = str(exc)
+    spec = _spec(wildcards.id)
+    if isinstance(spec, FigkitError):
+        problem = str(spec)
+    else:
+        problem = ";".join(str(p) for p in (spec.data_path, *spec.style.files) if not _available(p))
     return fingerprint(row, FK_CONFIG) + (f":{problem}" if problem else "")
 
 
