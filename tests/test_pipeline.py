@@ -180,3 +180,26 @@ def test_fresh_clone_schedules_the_demo_data_first(tmp_path):
     assert "-m figkit.demo data" in text
     sheet = pd.read_csv(project / "config" / "figures.tsv", sep="\t", dtype=str)
     assert _scheduled(proc) == sorted(sheet["id"])
+
+
+def test_data_made_by_a_later_rule_builds_once_and_settles(tmp_path):
+    """A project whose own rule (included after figkit's) makes the dataset: the first run makes
+    the data then the figure, and a second dry run has nothing to do."""
+    import shutil as sh
+    from conftest import REPO
+    root = tmp_path / "own"
+    (root / "config").mkdir(parents=True)
+    sh.copytree(REPO / "figkit" / "styles", root / "styles")
+    (root / "config" / "config.yaml").write_text("datasets: {d: data/d.csv}\nformats: [png]\n")
+    (root / "config" / "figures.tsv").write_text("id\tdataset\tchart\tx\nh\td\thistogram\tv\n")
+    (root / "Snakefile").write_text(
+        'import figkit.workflow\nconfigfile: "config/config.yaml"\n'
+        'include: figkit.workflow.rules()\n\n'
+        'rule all:\n    input: rules.all_figures.input\n\n'
+        'rule make_data:\n    output: "data/d.csv"\n'
+        '    run:\n        import numpy as np, pandas as pd\n'
+        '        pd.DataFrame({"v": np.random.default_rng(1).normal(size=500)}).to_csv(output[0], index=False)\n')
+    snakemake(root)
+    assert (root / "results" / "figures" / "h.png").is_file()
+    proc = snakemake(root, "-n")
+    assert "Nothing to be done" in proc.stdout + proc.stderr

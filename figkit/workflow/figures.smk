@@ -62,13 +62,18 @@ def _available(path) -> bool:
     return any(str(out) == name for r in workflow.rules for out in r.output)
 
 
-def _fingerprint(wildcards):
+def _fingerprint(wildcards, files: bool = True):
+    """The row's fingerprint, with its error if it has one and (``files``) the input files that
+    neither exist nor are made by a rule.  The stamp leaves the files out: it is written while
+    the workflow is read, when rules included later (the demo's data) are not known yet."""
     row = FK_BY_ID[wildcards.id]
     spec = _spec(wildcards.id)
     if isinstance(spec, FigkitError):
         problem = str(spec)
-    else:
+    elif files:
         problem = ";".join(str(p) for p in (spec.data_path, *spec.style.files) if not _available(p))
+    else:
+        problem = ""
     return fingerprint(row, FK_CONFIG) + (f":{problem}" if problem else "")
 
 
@@ -90,7 +95,7 @@ def _write_stamp(rid: str) -> None:
     has no metadata for it (outputs made by `figkit render` by hand, a copied results folder).
     Written while the workflow is read, before Snakemake looks at any file."""
     path = Path(FK_RESULTS) / ".fingerprints" / rid
-    value = _fingerprint(type("W", (), {"id": rid})())
+    value = _fingerprint(type("W", (), {"id": rid})(), files=False)
     if not path.is_file() or path.read_text(encoding="utf-8") != value:
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_name(f".{path.name}.part")
