@@ -34,6 +34,15 @@ def _reader(path: Path):
     return "tsv" if name.endswith((".tsv", ".tsv.gz", ".txt")) else "csv"
 
 
+def input_record(path: Path, root: Path) -> dict:
+    """{path relative to the project (its name alone when outside it), sha256} for the sidecar."""
+    try:
+        rel = path.resolve().relative_to(Path(root).resolve()).as_posix()
+    except ValueError:
+        rel = path.name
+    return {"path": rel, "sha256": sha256_file(path)}
+
+
 def read_columns(path: Path) -> list[str]:
     """The dataset's column names, read from its header only."""
     if not path.is_file():
@@ -252,13 +261,8 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
                             ordered.iloc[bounds[i]:bounds[i + 1]], int(dropped[i]),
                             cells[i] if cells else None))
 
-    root = rel_to or spec.root
-    try:
-        rel = path.resolve().relative_to(Path(root).resolve()).as_posix()
-    except ValueError:  # a dataset outside the project folder: keep its name only
-        rel = path.name
-    inputs = [{"path": rel, "sha256": sha256_file(path)}]
-    data = FigureData(panels, inputs, n_read, n_kept, levels, n_unassigned, grid_levels)
+    data = FigureData(panels, [input_record(path, rel_to or spec.root)], n_read, n_kept, levels,
+                      n_unassigned, grid_levels)
     data.present = present
     return data
 
@@ -433,13 +437,8 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
         frame = pd.DataFrame({f: pd.Series(dtype=float) for f in used})
         panels.append(Panel(label, {k: _json_value(v) for k, v in keys.items()}, frame,
                             tally.n_dropped, cells[i] if cells else None, tally=tally))
-    root = rel_to or spec.root
-    try:
-        rel = path.resolve().relative_to(Path(root).resolve()).as_posix()
-    except ValueError:
-        rel = path.name
     grid_levels = (order(strata[0]), order(strata[1])) if len(strata) == 2 else ()
-    data = FigureData(panels, [{"path": rel, "sha256": sha256_file(path)}], n_read, n_kept, {},
+    data = FigureData(panels, [input_record(path, rel_to or spec.root)], n_read, n_kept, {},
                       n_unassigned, grid_levels)
     data.streamed = {"chunk_rows": CHUNK_ROWS, "hex_grid": None if grid is None else
                      [grid.xmin, grid.xmax, grid.ymin, grid.ymax, grid.nx],

@@ -169,21 +169,20 @@ def render(project: Project, figure_id: str) -> dict:
     Every mistake found on the way names the sheet row and the figure."""
     row = find_row(project.rows, figure_id)
     try:
-        return _render(project, figure_id)
+        return _render(project, row)
     except FigkitError as exc:
         raise exc.at(row=row.number, figure=figure_id) from None
 
 
-def _render(project: Project, figure_id: str) -> dict:
+def _render(project: Project, row: SheetRow) -> dict:
     import matplotlib as mpl
     mpl.use("Agg", force=True)
     from .draw import build_figure
 
-    spec = project.spec(figure_id)
+    spec = build_spec(row, project.config)
     data = load_figure_data(spec, stream_above_bytes=int(project.config["stream_above_mb"] * 2 ** 20))
     out_dir = project.config.results / "figures"
     results_rel = project.config["results"]
-    row = find_row(project.rows, figure_id)
     row_json = json.dumps(row.cells, sort_keys=True, ensure_ascii=False)
 
     strata = strata_comparison(spec, data)
