@@ -43,7 +43,6 @@ import difflib
 from dataclasses import dataclass
 
 import numpy as np
-import pandas as pd
 
 from figkit.errors import FigkitError
 
@@ -456,6 +455,7 @@ class _Value:
 
 def _column_value(name: str, series: pd.Series) -> _Value:
     """Classify a column and hand back its values as a numpy array plus a missing mask."""
+    import pandas as pd   # here, not at the top: the workflow parses filters without pandas
     dtype = series.dtype
     label = f"column {name!r} (dtype {dtype})"
     missing = series.isna().to_numpy(dtype=bool)
@@ -602,6 +602,7 @@ class _Evaluator:
         return (date.data, stamp) if left is date else (stamp, date.data)
 
     def timestamp(self, text: str, date: _Value, pos: int) -> int:
+        import pandas as pd
         try:
             stamp = pd.Timestamp(text)
         except (ValueError, TypeError):
@@ -669,6 +670,7 @@ class Expr:
         full rules.  Raises FigkitError for a column the data lacks (listing those it has)
         or for values that cannot be compared (naming the column and its dtype).
         """
+        import pandas as pd
         if not isinstance(df, pd.DataFrame):
             raise TypeError(f"evaluate needs a pandas DataFrame, not {type(df).__name__}")
         for col in self._column_nodes:
@@ -676,6 +678,7 @@ class Expr:
         return _Evaluator(self.text, df).test(self._root)
 
     def _check_column(self, col: _Column, df: pd.DataFrame) -> None:
+        import pandas as pd
         names = [str(c) for c in df.columns]
         if col.name not in df.columns:
             hint = None

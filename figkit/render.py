@@ -109,22 +109,18 @@ def panel_statistics(spec: FigureSpec, data: FigureData) -> list[dict]:
 
 
 def strata_comparison(spec: FigureSpec, data: FigureData) -> dict | None:
-    """Interaction F-test of equal slopes across panels (see stats.strata_slope_test)."""
+    """Interaction F-test of equal slopes across panels (stats.strata_slope_test_from_sums): one
+    pass of centred sums per panel, in memory or streamed alike.  Solving the two least-squares
+    models directly (stats.strata_slope_test, the same F) took 1.7 s at 2 million rows."""
     if spec.trend != "line" or not spec.strata or len(data.panels) < 2:
         return None
     if data.panels[0].tally is not None:
-        test = stats.strata_slope_test_from_sums(
-            {p.label: p.tally.line for p in data.panels if p.tally.line is not None})
-        return None if test is None else {
-            "F": test.F, "df_num": test.df_num, "df_den": test.df_den, "p": test.p,
-            "pooled_slope": test.pooled_slope, "crude_slope": test.crude_slope,
-            "excluded": list(test.excluded)}
-    xs, ys, labels = [], [], []
-    for p in data.panels:
-        xs.append(p.frame[spec.x].to_numpy(dtype=float))
-        ys.append(p.frame[spec.y].to_numpy(dtype=float))
-        labels.append(np.full(p.n, p.label, dtype=object))
-    test = stats.strata_slope_test(np.concatenate(xs), np.concatenate(ys), np.concatenate(labels))
+        sums = {p.label: p.tally.line for p in data.panels if p.tally.line is not None}
+    else:
+        sums = {p.label: stats.LineSums.of(p.frame[spec.x].to_numpy(dtype=float),
+                                           p.frame[spec.y].to_numpy(dtype=float))
+                for p in data.panels}
+    test = stats.strata_slope_test_from_sums(sums)
     if test is None:
         return None
     return {"F": test.F, "df_num": test.df_num, "df_den": test.df_den, "p": test.p,

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import hashlib
 from dataclasses import dataclass
+from functools import lru_cache
 from pathlib import Path
 
 import yaml
@@ -64,9 +65,17 @@ _REQUIRED = {"sheet", "sizes", "max_height_mm", "panel", "text", "minimums", "pa
 
 
 def _read_rc(path: Path) -> dict:
+    st = path.stat()
+    return dict(_parsed_rc(str(path), st.st_mtime_ns, st.st_size))   # a copy per caller
+
+
+@lru_cache(maxsize=32)
+def _parsed_rc(path: str, _mtime_ns: int, _size: int) -> dict:
+    """The style sheet's settings, parsed once per process while the file is unchanged (the
+    workflow builds every row's spec when it reads the sheet)."""
     import matplotlib as mpl
     try:
-        return dict(mpl.rc_params_from_file(str(path), use_default_template=False))
+        return dict(mpl.rc_params_from_file(path, use_default_template=False))
     except (OSError, ValueError) as exc:  # pragma: no cover - message only
         raise FigkitError(f"style sheet {path} cannot be read: {exc}") from None
 

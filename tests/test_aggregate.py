@@ -84,3 +84,27 @@ def test_strata_test_from_sums_equals_the_least_squares_version_and_anova_lm():
     df = pd.DataFrame({"x": x, "y": y, "g": g})
     table = anova_lm(smf.ols("y ~ x + C(g)", df).fit(), smf.ols("y ~ x * C(g)", df).fit())
     assert fast.F == pytest.approx(table["F"].iloc[1], rel=1e-7)
+
+
+def test_strata_test_from_sums_leaves_out_a_constant_stratum_as_the_direct_version_does():
+    """A stratum whose x is one repeated value (0.1, which sums cannot hold exactly) has no
+    slope: both versions of the test leave it out and agree on the rest.  Reference for the
+    remaining F: statsmodels anova_lm (y ~ x + C(g) against y ~ x * C(g))."""
+    import pandas as pd
+    import statsmodels.formula.api as smf
+    from statsmodels.stats.anova import anova_lm
+    from figkit.stats import LineSums, strata_slope_test, strata_slope_test_from_sums
+    rng = np.random.default_rng(5)
+    g = np.repeat(["a", "b", "flat"], [200, 150, 1001])
+    x = rng.normal(3, 1, g.size)
+    x[g == "flat"] = 0.1
+    y = 0.7 * x + rng.normal(0, 1, g.size)
+    sums = {k: LineSums.of(x[g == k], y[g == k]) for k in ["a", "b", "flat"]}
+    assert sums["flat"].sxx > 0            # rounding leaves a tiny spread around the mean
+    fast = strata_slope_test_from_sums(sums)
+    direct = strata_slope_test(x, y, g)
+    assert fast.excluded == direct.excluded == ("flat",)
+    assert fast.F == pytest.approx(direct.F, rel=1e-9)
+    kept = pd.DataFrame({"x": x, "y": y, "g": g}).query("g != 'flat'")
+    table = anova_lm(smf.ols("y ~ x + C(g)", kept).fit(), smf.ols("y ~ x * C(g)", kept).fit())
+    assert fast.F == pytest.approx(table["F"].iloc[1], rel=1e-7)
