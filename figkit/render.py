@@ -119,7 +119,7 @@ def strata_comparison(spec: FigureSpec, data: FigureData) -> dict | None:
     else:
         sums = {p.label: stats.LineSums.of(p.frame[spec.x].to_numpy(dtype=float),
                                            p.frame[spec.y].to_numpy(dtype=float))
-                for p in data.panels}
+                for p in data.panels if p.n}     # an empty panel is no stratum of the data
     test = stats.strata_slope_test_from_sums(sums)
     if test is None:
         return None
