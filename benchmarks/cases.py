@@ -299,21 +299,24 @@ def case_bincount_bound(a: dict) -> dict:
 
 # ---------------------------------------------------------------------- line statistics
 def case_line_fits(a: dict) -> dict:
-    """Per-panel straight lines with figkit.stats.fit_line after the same pandas split
-    figkit.data makes, against one groupby().mean() over the same frame."""
+    """Per-panel straight lines as figkit makes them in memory: factorize the stratum, split the
+    rows into panels (figkit.data.split_rows: one stable sort, no copy per panel) and
+    figkit.stats.fit_line per panel, against one groupby().mean() over the same frame."""
+    import pandas as pd
     from figkit import stats
+    from figkit.data import split_rows
     df = read_points(a["csv"])
     repeat = a.get("repeat", 3)
 
-    def figkit_fits():
-        fits = {}
-        for level, part in df.groupby("stratum", sort=False, observed=True):
-            fits[level] = stats.fit_line(part["x"].to_numpy(dtype=float), part["y"].to_numpy(dtype=float))
-        return fits
-
     def presplit():
-        return {k: (p["x"].to_numpy(dtype=float), p["y"].to_numpy(dtype=float))
-                for k, p in df.groupby("stratum", sort=False, observed=True)}
+        codes, levels = pd.factorize(df["stratum"], sort=False)
+        ordered, bounds, _ = split_rows(df, codes, len(levels), ["x", "y"])
+        x, y = ordered["x"].to_numpy(dtype=float), ordered["y"].to_numpy(dtype=float)
+        return {lev: (x[bounds[i]:bounds[i + 1]], y[bounds[i]:bounds[i + 1]])
+                for i, lev in enumerate(levels)}
+
+    def figkit_fits():
+        return {k: stats.fit_line(px, py) for k, (px, py) in presplit().items()}
 
     def groupby_mean():
         return df.groupby("stratum", sort=False, observed=True)[["x", "y"]].mean()

@@ -375,7 +375,7 @@ def bench_fits(sz, work, rows, details, data_log, profile):
         rows.append(["3. line fits, 12 panels", fn(n), "failed", "—", "—", "≤ 2", "—"])
         return
     r = res["seconds"] / res["baseline_s"]
-    rows.append(["3. line fits, 12 panels: pandas split + fit_line ×12 vs groupby().mean()", fn(n),
+    rows.append(["3. line fits, 12 panels: factorize + split_rows + fit_line ×12 vs groupby().mean()", fn(n),
                  fs(res["seconds"]), fs(res["baseline_s"]), fr(r), "≤ 2", met(r <= 2)])
     if profile is not None:
         profile["3. line fits (split + fit_line ×12), " + fn(n)] = work / "prof_fits.pstats"
@@ -657,7 +657,7 @@ def details_table(details: dict) -> list[str]:
         elif "baseline_s" in d:
             extra = (f"groupby().mean() {fs(d['baseline_s'])}; fit_line ×12 on pre-split arrays "
                      f"{fs(d['fit_only_s'])} (runs {', '.join(fs(t) for t in d['fit_only_times'])}); "
-                     f"pandas split alone {fs(d['split_s'])}")
+                     f"factorize + split alone {fs(d['split_s'])}")
         elif "extra_peak_bytes" in d:
             extra = (f"extra peak RSS {fb(d['extra_peak_bytes'])} (data {fb(d['data_bytes'])}; "
                      f"peak reset {'ok' if d['peak_reset'] else 'unavailable'})")

@@ -167,6 +167,32 @@ def _check_kind(frame: pd.DataFrame, field: str, need: str, spec: FigureSpec, ro
                            allowed="a categorical column, or a band set (bands:) derived from it")
 
 
+def split_rows(frame: pd.DataFrame, codes: np.ndarray, k: int, used: list[str]):
+    """Split rows into ``k`` panels at once, with no DataFrame copy per panel: rows incomplete
+    in ``used`` are dropped (and counted per panel), one stable sort by panel code puts each
+    panel's rows together in their file order.  Returns (the ``used`` columns in panel order,
+    k + 1 slice bounds, dropped rows per panel); panel i is ``ordered[bounds[i]:bounds[i+1]]``.
+    """
+    complete = frame[used].notna().all(axis=1).to_numpy() if used else np.ones(len(frame), bool)
+    everything = bool(complete.all())     # the usual case: skip the masking copies
+    dropped = np.zeros(k, dtype=np.int64) if everything else np.bincount(codes[~complete], minlength=k)
+    if not everything:
+        codes = codes[complete]
+    order = np.argsort(codes.astype(np.int16 if k < 2 ** 15 else np.int64), kind="stable")
+    rows = order if everything else np.flatnonzero(complete)[order]
+    ordered = pd.DataFrame({f: _gather(frame[f], rows) for f in used},
+                           index=pd.RangeIndex(len(rows)))
+    return ordered, np.searchsorted(codes[order], np.arange(k + 1)), dropped
+
+
+def _gather(series: pd.Series, rows: np.ndarray):
+    """The series' values at ``rows``: numpy indexing for numpy dtypes (half the time of
+    DataFrame.take at 1e7 rows, and no index to carry), pandas' take for the others."""
+    if isinstance(series.dtype, np.dtype):
+        return series.to_numpy()[rows]
+    return series.take(rows).reset_index(drop=True)   # categories and strings keep their dtype
+
+
 def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
                      stream_above_bytes: int | None = None) -> FigureData:
     """Read, derive, filter, type-check and split the data of one figure (chunk by chunk for
@@ -229,7 +255,8 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     if spec.strata:
         has_strata = frame[list(spec.strata)].notna().all(axis=1)
         n_unassigned = int((~has_strata).sum())
-        frame = frame.loc[has_strata]
+        if n_unassigned:          # a copy of every column: ~0.3 s at 1e7 rows, so only if needed
+            frame = frame.loc[has_strata]
     panels: list[Panel] = []
     grid_levels: tuple = ()
     if not spec.strata:
@@ -247,15 +274,8 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
         labels = [f"{rv} / {cv}" for rv in rlev for cv in clev]
         cells = [(i, j) for i in range(len(rlev)) for j in range(len(clev))]
         grid_levels = (rlev, clev)
-    # One pass for every panel (no DataFrame copy per panel): drop incomplete rows once,
-    # counting them per panel, then one stable sort by panel so each panel is a slice.
     k = len(keys_list)
-    complete = frame[used].notna().all(axis=1).to_numpy() if used else np.ones(len(frame), bool)
-    dropped = np.bincount(codes[~complete], minlength=k)
-    codes = codes[complete]
-    order = np.argsort(codes.astype(np.int16 if k < 2 ** 15 else np.int64), kind="stable")
-    ordered = frame[used].take(np.flatnonzero(complete)[order]).reset_index(drop=True)
-    bounds = np.searchsorted(codes[order], np.arange(k + 1))
+    ordered, bounds, dropped = split_rows(frame, codes, k, used)
     for i in range(k):
         panels.append(Panel(labels[i], {f: _json_value(v) for f, v in keys_list[i].items()},
                             ordered.iloc[bounds[i]:bounds[i + 1]], int(dropped[i]),
