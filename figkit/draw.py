@@ -86,7 +86,7 @@ def _drawn_tick_labels(axis, renderer=None) -> list:
     out = []
     for major in (True, False):
         params = axis.get_tick_params(which="major" if major else "minor")
-        if not any(v for k, v in params.items() if k.startswith("label")):
+        if not any(params.get(k) for k in ("labelleft", "labelright", "labelbottom", "labeltop")):
             continue   # labels switched off (inner panels of a shared axis): nothing to place
         locs, ticks = _ticks_now(axis, major)
         for tick, keep in zip(ticks, _in_view(axis, locs)):

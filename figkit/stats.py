@@ -862,10 +862,13 @@ def strata_slope_test_from_sums(sums: dict) -> StrataTest | None:
         b_w      = sum_k Sxy_k / sum_k Sxx_k                        (pooled within-stratum slope)
         RSS_add  = sum_k Syy_k - (sum_k Sxy_k)^2 / sum_k Sxx_k      (common slope)
         F = ((RSS_add - RSS_full) / (K - 1)) / (RSS_full / (N - 2K))
-    The crude slope comes from the merged sums.  Strata with n < 3 or constant x are excluded.
+    The crude slope comes from the merged sums.  Strata with n < 3, or whose x has a standard
+    deviation below 1e-13 of its size (max(1, |mean|); rounding leaves a tiny non-zero Sxx
+    around a constant, which would otherwise give a wild slope), are excluded.  Rounding guards
+    as in :func:`strata_slope_test`: RSS_add - RSS_full is floored at 0, and an error mean
+    square below 1e-14 of the total centred sum of squares counts as an exact fit (F NaN when
+    the lines are also equal, else infinite).
     """
-    # Constant x as in strata_slope_test: a spread below 1e-13 of the values' size (rounding
-    # leaves a tiny non-zero Sxx around a constant, which would otherwise give a wild slope).
     usable = {k: s for k, s in sums.items()
               if s.n >= 3 and s.sxx > s.n * (1e-13 * max(1.0, abs(s.x_mean))) ** 2}
     excluded = tuple(k for k in sums if k not in usable)
@@ -876,18 +879,21 @@ def strata_slope_test_from_sums(sums: dict) -> StrataTest | None:
     sxx = sum(s.sxx for s in usable.values())
     sxy = sum(s.sxy for s in usable.values())
     syy = sum(s.syy for s in usable.values())
-    rss_full = sum(s.syy - s.sxy ** 2 / s.sxx for s in usable.values())
-    rss_add = syy - sxy ** 2 / sxx
+    rss_full = sum(max(s.syy - s.sxy ** 2 / s.sxx, 0.0) for s in usable.values())
+    rss_add = max(syy - sxy ** 2 / sxx, 0.0)
     df_num, df_den = K - 1, N - 2 * K
     if df_den <= 0:
         return None
-    if rss_full <= 0:
-        F, p = (math.inf, 0.0) if rss_add > 0 else (math.nan, math.nan)
-    else:
-        F = ((rss_add - rss_full) / df_num) / (rss_full / df_den)
-        p = float(_special.fdtrc(df_num, df_den, F))   # upper tail of F(df_num, df_den)
     merged = None
     for s in usable.values():
         merged = s if merged is None else merged.merge(s)
+    num = max(rss_add - rss_full, 0.0) / df_num
+    den = rss_full / df_den
+    tiny = 1e-14 * max(merged.syy, np.finfo(float).tiny)
+    if den <= tiny:
+        F, p = (math.nan, math.nan) if num <= tiny else (math.inf, 0.0)
+    else:
+        F = num / den
+        p = float(_special.fdtrc(df_num, df_den, F))   # upper tail of F(df_num, df_den)
     return StrataTest(F=float(F), df_num=df_num, df_den=df_den, p=p, pooled_slope=sxy / sxx,
                       crude_slope=merged.sxy / merged.sxx, n=N, n_strata=K, excluded=excluded)

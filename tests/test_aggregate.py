@@ -108,3 +108,35 @@ def test_strata_test_from_sums_leaves_out_a_constant_stratum_as_the_direct_versi
     kept = pd.DataFrame({"x": x, "y": y, "g": g}).query("g != 'flat'")
     table = anova_lm(smf.ols("y ~ x + C(g)", kept).fit(), smf.ols("y ~ x * C(g)", kept).fit())
     assert fast.F == pytest.approx(table["F"].iloc[1], rel=1e-7)
+
+
+def test_strata_test_from_sums_with_equal_slopes_and_exact_lines():
+    """Rounding guards shared with the least-squares version.  Reference for the noisy case:
+    statsmodels anova_lm, whose F is 0 (to rounding) when every stratum has the same fitted
+    slope; exact lines give NaN (equal slopes) or an infinite F (different slopes), as the
+    direct version does."""
+    import pandas as pd
+    import statsmodels.formula.api as smf
+    from statsmodels.stats.anova import anova_lm
+    from figkit.stats import LineSums, strata_slope_test, strata_slope_test_from_sums
+    rng = np.random.default_rng(8)
+    x = rng.uniform(0, 20, 60)
+    e = rng.normal(0, 1, 60)
+    g = np.repeat(["a", "b", "c"], 20)
+    # the same x and noise in every stratum, shifted: identical fitted slopes
+    xs, es = np.tile(x[:20], 3), np.tile(e[:20], 3)
+    y = 0.4 * xs + es + np.repeat([0.0, 3.0, 7.0], 20)
+    sums = {k: LineSums.of(xs[g == k], y[g == k]) for k in "abc"}
+    fast = strata_slope_test_from_sums(sums)
+    df = pd.DataFrame({"x": xs, "y": y, "g": g})
+    table = anova_lm(smf.ols("y ~ x + C(g)", df).fit(), smf.ols("y ~ x * C(g)", df).fit())
+    assert abs(table["F"].iloc[1]) < 1e-9
+    assert fast.F == pytest.approx(0.0, abs=1e-9) and fast.p == pytest.approx(1.0)
+    for slopes, expect in (((1.8, 1.8, 1.8), "nan"), ((1.8, 1.0, 1.8), "inf")):
+        y = np.repeat(slopes, 20) * x + 32.0 + np.repeat([0.0, 5.0, 9.0], 20)
+        sums = {k: LineSums.of(x[g == k], y[g == k]) for k in "abc"}
+        fast, direct = strata_slope_test_from_sums(sums), strata_slope_test(x, y, g)
+        if expect == "nan":
+            assert np.isnan(fast.F) and np.isnan(fast.p) and np.isnan(direct.F)
+        else:
+            assert fast.F == direct.F == np.inf and fast.p == direct.p == 0.0

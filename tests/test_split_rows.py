@@ -33,9 +33,17 @@ def test_split_rows_matches_pandas_groupby():
 
 
 def test_split_rows_when_every_row_is_complete_and_a_panel_is_empty():
-    frame = pd.DataFrame({"x": [1.0, 2.0, 3.0, 4.0], "y": [4.0, 3.0, 2.0, 1.0]})
-    codes = np.array([2, 0, 2, 0])          # panel 1 has no rows
-    ordered, bounds, dropped = split_rows(frame, codes, 3, ["x", "y"])
-    assert bounds.tolist() == [0, 2, 2, 4]
-    assert ordered["x"].tolist() == [2.0, 4.0, 1.0, 3.0]    # file order within each panel
-    assert dropped.tolist() == [0, 0, 0]
+    """Reference: pandas groupby on the panel codes (a code with no rows has an empty slice)."""
+    rng = np.random.default_rng(4)
+    frame = pd.DataFrame({"x": rng.normal(size=300), "flag": rng.random(300) < 0.5,
+                          "when": pd.date_range("2026-01-01", periods=300, freq="h", tz="UTC")})
+    codes = rng.choice([0, 2, 3], 300)          # panel 1 has no rows
+    ordered, bounds, dropped = split_rows(frame, codes, 4, ["x", "flag", "when"])
+    groups = dict(list(frame.groupby(codes, sort=True)))
+    for i in range(4):
+        got = ordered.iloc[bounds[i]:bounds[i + 1]].reset_index(drop=True)
+        if i not in groups:
+            assert got.empty
+            continue
+        pd.testing.assert_frame_equal(got, groups[i].reset_index(drop=True))
+    assert dropped.tolist() == [0, 0, 0, 0]
