@@ -3,14 +3,18 @@ sidecar and with independent computations on the data files."""
 from __future__ import annotations
 
 import hashlib
+import os
 import json
 import re
 import shutil
+import subprocess
+import sys
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pytest
 from PIL import Image
 from pypdf import PdfReader
 
@@ -202,4 +206,22 @@ def test_data_made_by_a_later_rule_builds_once_and_settles(tmp_path):
     snakemake(root)
     assert (root / "results" / "figures" / "h.png").is_file()
     proc = snakemake(root, "-n")
+    assert "Nothing to be done" in proc.stdout + proc.stderr
+
+
+def test_the_same_interpreter_by_another_path_reruns_nothing(built_demo):
+    """`python -m snakemake`, `.venv/bin/snakemake` and a co-author's clone reach the interpreter
+    by different paths; none of them may make Snakemake see changed job code and rebuild every
+    figure (and regenerate the data).  Common practice, no outside source: a rebuild reruns
+    exactly what changed."""
+    exe = Path(sys.executable)
+    # Another name for the same interpreter: venvs have python, python3 and python3.X side by side.
+    others = [exe.with_name(n) for n in ("python3", "python", f"python3.{sys.version_info.minor}")]
+    other = next((p for p in others if p.name != exe.name and p.exists()), None)
+    if other is None:
+        pytest.skip("no second name for this interpreter")
+    proc = subprocess.run([str(other), "-m", "snakemake", "--cores", "2", "-n", "-p"], cwd=built_demo,
+                          capture_output=True, text=True, env=dict(os.environ, MPLBACKEND="Agg"))
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    assert _scheduled(proc) == []
     assert "Nothing to be done" in proc.stdout + proc.stderr

@@ -1,6 +1,5 @@
 # The demo manuscript's data: an invented river-monitoring network, generated deterministically.
-import sys
-import shlex
+import figkit.workflow
 
 
 rule demo_data:
@@ -9,4 +8,4 @@ rule demo_data:
         "data/surveys.csv",
         "data/sites.csv",
     shell:
-        f"{shlex.quote(sys.executable)} -m figkit.demo data"
+        f"{figkit.workflow.job_python()} -m figkit.demo data"

@@ -5,10 +5,10 @@
 # changes (part of the fingerprint).  The sheet file itself is not an input, so editing one row
 # reruns only that figure.
 import sys
-import shlex
 from snakemake.utils import min_version, validate
 
 import figkit
+import figkit.workflow
 from figkit.errors import FigkitError
 from figkit.sheet import read_sheet, schema_path, validate_config
 from figkit.spec import build_spec, fingerprint
@@ -140,7 +140,7 @@ rule figure:
     wildcard_constraints:
         id="[A-Za-z0-9][A-Za-z0-9_-]*",
     shell:
-        f"{shlex.quote(sys.executable)} -m figkit render --id {{wildcards.id}}"
+        f"{figkit.workflow.job_python()} -m figkit render --id {{wildcards.id}}"
 
 
 def _stop_rate_timers():
