@@ -107,3 +107,69 @@ def test_every_output_is_written_and_sidecar_is_json(penguin_project):
         assert (out / f"species-bars{suffix}").is_file()
     assert json.loads((out / "species-bars.json").read_text())["id"] == "species-bars"
     assert not list(out.glob(".*.part"))   # no temporary files left behind
+
+
+def _tile_text_boxes(fig):
+    """(text, its box, its tile's box) in display units for every tile count text of a tiles
+    figure: tile (j, i) spans j ± 0.5, i ± 0.5 in data units (figkit.charts.draw_tiles)."""
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    out = []
+    for ax in fig.axes:
+        for t in ax.texts:
+            if not t.get_text().isdigit():
+                continue
+            j, i = t.get_position()
+            (x0, y0), (x1, y1) = ax.transData.transform([(j - 0.5, i - 0.5), (j + 0.5, i + 0.5)])
+            shown = t.get_visible()
+            t.set_visible(True)        # a hidden text measures as an empty box
+            bb = t.get_window_extent(renderer)
+            t.set_visible(shown)
+            out.append((t, bb, (min(x0, x1), min(y0, y1), max(x0, x1), max(y0, y1))))
+    return out
+
+
+def test_tile_counts_are_printed_inside_their_tiles(penguin_project, penguins):
+    """Every count printed in a tile lies inside that tile at final size and equals the
+    crosstab (Gorman et al. 2014 data; pandas crosstab as the independent count)."""
+    from figkit.render import figure
+    fig = figure("species-tiles", load_project(penguin_project))
+    boxes = _tile_text_boxes(fig)
+    assert len(boxes) == 2 * 3 * 3                       # two sexes x three islands x three species
+    for t, bb, (x0, y0, x1, y1) in boxes:
+        assert t.get_visible()
+        assert x0 <= bb.x0 and bb.x1 <= x1 and y0 <= bb.y0 and bb.y1 <= y1, t.get_text()
+    printed = sorted(int(t.get_text()) for t, _, _ in boxes)
+    expect = sorted(int(v) for s in ("female", "male")
+                    for v in pd.crosstab(penguins.loc[penguins["sex"] == s, "species"],
+                                         penguins.loc[penguins["sex"] == s, "island"])
+                    .reindex(index=["Adelie", "Chinstrap", "Gentoo"],
+                             columns=["Biscoe", "Dream", "Torgersen"], fill_value=0).to_numpy().ravel())
+    assert printed == expect
+
+
+def test_tile_counts_too_big_for_their_tiles_are_all_left_out(penguin_project):
+    """One-millimetre flipper-length bands make tiles far narrower than a printed number: then no
+    number is printed (a partial set would read as missing values) and a caution says why.
+    Tile size and text size are read from the drawn figure; no outside source (common practice:
+    printed numbers must fit the cell they label)."""
+    from figkit.render import figure
+    root = penguin_project.parent / (penguin_project.name + "-narrow")
+    if not root.exists():
+        shutil.copytree(penguin_project, root, ignore=shutil.ignore_patterns("results"))
+    cuts = list(range(173, 232))   # flipper lengths of the data run from 172 to 231 mm
+    bands = "".join(f"      - {{label: f{c - 1}, below: {c}}}\n" for c in cuts) + "      - {label: f231}\n"
+    (root / "config" / "config.yaml").write_text(
+        "datasets:\n  penguins: data/penguins.csv\nformats: [png, svg]\n"
+        "bands:\n  flipper_mm:\n    from: flipper_length_mm\n    bands:\n" + bands)
+    (root / "config" / "figures.tsv").write_text(
+        "id\tdataset\tchart\tx\ty\tweight\tstrata\tbands\n"
+        "narrow-tiles\tpenguins\ttiles\tflipper_mm\tspecies\t\tsex\tflipper_mm\n")
+    car = render(load_project(root), "narrow-tiles")
+    notes = [c for c in car["cautions"] if c.startswith("tile counts not printed")]
+    assert len(notes) == 1, car["cautions"]
+    boxes = _tile_text_boxes(figure("narrow-tiles", load_project(root)))
+    assert boxes                                          # the numbers were made ...
+    assert not any(t.get_visible() for t, _, _ in boxes)  # ... and none is shown
+    # and they really did not fit: the widest number is wider than its tile
+    assert max(bb.width - (x1 - x0) for _, bb, (x0, _, x1, _) in boxes) > 0

@@ -143,23 +143,9 @@ rule figure:
         f"{figkit.workflow.job_python()} -m figkit render --id {{wildcards.id}}"
 
 
-def _stop_rate_timers():
-    """Snakemake's job rate limiter (100 jobs per second by default) leaves a one-second timer
-    thread behind after its last scheduling round, and the interpreter waits for it before
-    exiting: a second added to every build, a third of a one-figure rebuild (benchmarks/, case
-    6).  Nothing is scheduled after the end, so the timers are stopped.  A project Snakefile
-    with its own onsuccess/onerror handler replaces these (Snakemake keeps one of each) and
-    only loses the second."""
-    import threading
-    for t in threading.enumerate():
-        fn = getattr(t, "function", None)
-        if isinstance(t, threading.Timer) and "_schedule_reevalutation" in getattr(fn, "__qualname__", ""):
-            t.cancel()
-
-
 onsuccess:
-    _stop_rate_timers()
+    figkit.workflow.stop_rate_timers()
 
 
 onerror:
-    _stop_rate_timers()
+    figkit.workflow.stop_rate_timers()
