@@ -150,9 +150,18 @@ def read_sheet(path: Path | str) -> list[SheetRow]:
         if not any(v.strip() for v in values) or values[0].lstrip().startswith("#"):
             continue
         if len(values) > len(header):
-            rows.append(SheetRow(number, {}, FigkitError(
-                f"{len(values)} cells but the header has {len(header)} columns", row=number)))
-            continue
+            # Spreadsheets often export empty cells past the last column: harmless.  A filled
+            # one means a stray tab (or a missing header): the row is refused, and keeps its id
+            # so that its figure fails with this message instead of vanishing from the build.
+            extra = [v.strip() for v in values[len(header):] if v.strip()]
+            if extra:
+                rid = values[header.index("id")].strip() if "id" in header else ""
+                rows.append(SheetRow(number, {"id": rid} if rid else {}, FigkitError(
+                    f"{len(values)} cells but the header has {len(header)} columns (a tab inside "
+                    "a cell?)", row=number, figure=rid or None, value=extra[0],
+                    allowed=f"{len(header)} cells: {', '.join(header)}")))
+                continue
+            values = values[:len(header)]
         cells = {h: v.strip() for h, v in zip(header, values) if v.strip()}
         row = check_row(number, cells)
         if row.error is None and row.id in seen:

@@ -173,3 +173,27 @@ def test_repeated_id_edits_of_the_first_row_are_honoured(project, tmp_path):
     write_sheet(root, dict(GOOD, options="points=translucent"), dict(GOOD, chart="hexbins"))
     proc = snakemake(root, "-n", "-p")
     assert "--id good" in proc.stdout + proc.stderr
+
+
+def test_too_many_cells_names_the_figure_and_the_stray_value(project):
+    """A filled cell past the header's last column (a stray tab) is refused in one line naming
+    the row, the figure id, the stray value and the header's columns; that figure fails alone."""
+    lines = ["\t".join(HEADER), "\t".join(GOOD.get(h, "") for h in HEADER),
+             "\t".join(dict(GOOD, id="stray").get(h, "") for h in HEADER) + "\tsummer only"]
+    (project / "config" / "figures.tsv").write_text("\n".join(lines) + "\n")
+    proc = run_render(project, "stray")
+    assert proc.returncode == 2
+    err = proc.stderr.strip()
+    assert len(err.splitlines()) == 1 and "Traceback" not in err
+    for w in ("row 3", "stray", "'summer only'", f"{len(HEADER) + 1} cells", "dataset, chart"):
+        assert w in err, f"'{w}' missing from: {err}"
+    assert run_render(project, "good").returncode == 0
+
+
+def test_empty_cells_past_the_header_are_ignored(project):
+    """Spreadsheet exports often end rows with empty cells beyond the last column: not an error."""
+    lines = ["\t".join(HEADER), "\t".join(GOOD.get(h, "") for h in HEADER) + "\t\t\t"]
+    (project / "config" / "figures.tsv").write_text("\n".join(lines) + "\n")
+    from figkit.sheet import read_sheet
+    rows = read_sheet(project / "config" / "figures.tsv")
+    assert len(rows) == 1 and rows[0].error is None and rows[0].id == "good"
