@@ -44,6 +44,7 @@ def _cmd_lint(args) -> int:
     for row in project.rows:
         try:
             spec = build_spec(row, project.config)
+            spec.style.rc                      # parses and checks the style sheet
             if spec.data_path not in headers:
                 headers[spec.data_path] = read_columns(spec.data_path)
             check_columns(spec, headers[spec.data_path])
