@@ -92,7 +92,10 @@ def _cmd_info(args) -> int:
 
 
 def _cmd_preflight(args) -> int:
-    """One line per failed check, then a summary; exit 2 on a failure in strict mode."""
+    """One line per failed check, then a summary.  Exit 1 when a check failed (as a linter does,
+    so a script or CI job stops), 0 when every check passed or only warned; 2 is kept for
+    mistakes in the input (an unknown figure id, a broken sheet).  ``--strict`` (or a strict house
+    style) turns the colour-separability warning into a failing check."""
     from .preflight import failure_lines, preflight_project
     from .render import load_project
     results = preflight_project(load_project(args.project), args.ids, strict=args.strict)
@@ -106,7 +109,7 @@ def _cmd_preflight(args) -> int:
     n_checks = sum(len(r["checks"]) for _, r in results)
     print(f"figkit: preflight: {len(results)} figures, {n_checks} checks, {failed} failed, "
           f"{warned} warnings")
-    return 2 if any(not r["passed"] and r["strict"] for _, r in results) else 0
+    return 1 if failed else 0
 
 
 def _cmd_compare(args) -> int:
@@ -210,7 +213,7 @@ def build_parser() -> argparse.ArgumentParser:
     pf = sub.add_parser("preflight", help="re-check built figure files against the artwork rules")
     pf.add_argument("ids", nargs="*", metavar="ID", help="figure ids (default: every row)")
     pf.add_argument("--project", default=".", help="manuscript folder (default: here)")
-    pf.add_argument("--strict", action="store_true", help="exit 2 when any check fails")
+    pf.add_argument("--strict", action="store_true", help="judge colour separability too (a failing check, not a warning)")
     pf.set_defaults(func=_cmd_preflight)
     cmp = sub.add_parser("compare", help="say what changed between two folders of built figures")
     cmp.add_argument("old", help="folder of the earlier build (results/figures)")

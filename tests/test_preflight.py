@@ -94,7 +94,7 @@ def test_clean_demo_figures_pass_every_check(project):
         car["colours"]["min_delta_e"]["normal"], abs=1e-3)
 
 
-def test_cli_reports_failures_and_exits_2_only_when_strict(project, tmp_path, capsys):
+def test_cli_exits_1_on_a_failed_check_and_2_on_bad_input(project, tmp_path, capsys):
     from figkit.cli import main
 
     def run(root, *args):
@@ -114,11 +114,11 @@ def test_cli_reports_failures_and_exits_2_only_when_strict(project, tmp_path, ca
         im.load()
         im.save(png, dpi=(150, 150), pnginfo=_text_chunks(im))
     code, out, _ = run(copy, *CLEAN_IDS)
-    assert code == 0 and "raster resolution" in out
-    # the installed command line, as a separate process: strict mode exits 2
+    assert code == 1 and "raster resolution" in out and " 0 failed" not in out
+    # the installed command line, as a separate process, strict mode too: a failed check exits 1
     strict = subprocess.run([sys.executable, "-m", "figkit", "preflight", "--project", str(copy),
                              "--strict", *CLEAN_IDS], capture_output=True, text=True)
-    assert strict.returncode == 2, strict.stdout + strict.stderr
+    assert strict.returncode == 1, strict.stdout + strict.stderr
     lines = [ln for ln in strict.stdout.splitlines() if "raster resolution" in ln]
     assert lines == ["figkit: preflight: sensitive-share: sensitive-share.png: raster resolution: "
                      "150 dpi, below 600 dpi (common practice: 300 halftone, 500-600 combination, "
