@@ -87,6 +87,13 @@ def validate_config(data: dict, root: Path | str = ".") -> Config:
         raise FigkitError(f"config.yaml: {msg}", field=fld, value=value, allowed=allowed)
     full = _defaults(sch)
     full.update(copy.deepcopy(data))
+    # The project's house style is checked once here, not once per figure row that uses it (a
+    # row's own 'style' cell is checked with that row).
+    styles = Path(root) / full["styles_dir"]
+    if styles.is_dir() and not (styles / f"{full['style']}.yaml").is_file():
+        raise FigkitError("config.yaml: 'style' names an unknown house style", value=full["style"],
+                          allowed=sorted(p.stem for p in styles.glob("*.yaml")) or
+                          f"none found in {styles}")
     return Config(Path(root), full)
 
 

@@ -197,3 +197,25 @@ def test_empty_cells_past_the_header_are_ignored(project):
     from figkit.sheet import read_sheet
     rows = read_sheet(project / "config" / "figures.tsv")
     assert len(rows) == 1 and rows[0].error is None and rows[0].id == "good"
+
+
+@pytest.mark.parametrize("edit, words", [
+    (("formats: [pdf, png, svg]", "formats: [pdf, png, svg]\ndataset: readings"),
+     ["config.yaml", "unknown field 'dataset'", "datasets"]),
+    (("style: house", "style: nature"), ["config.yaml", "'style'", "'nature'", "house", "compact"]),
+])
+def test_bad_settings_under_snakemake_are_one_line(project, tmp_path, edit, words):
+    """Through Snakemake too, a mistake in config.yaml is one line naming the setting, the bad
+    value and what is allowed (no schema dump, no traceback), reported once, not once per row."""
+    root = tmp_path / "p"
+    shutil.copytree(project, root, symlinks=True)
+    cfg = root / "config" / "config.yaml"
+    assert edit[0] in cfg.read_text()
+    cfg.write_text(cfg.read_text().replace(edit[0], edit[1]))
+    write_sheet(root, GOOD, dict(GOOD, id="good2"))
+    proc = snakemake(root, "-n", check=False)
+    assert proc.returncode != 0
+    err = [ln for ln in proc.stderr.splitlines() if ln.strip()]
+    assert len(err) == 1, proc.stderr[-3000:]
+    for w in words:
+        assert w in err[0], f"'{w}' missing from: {err[0]}"

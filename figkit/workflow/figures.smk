@@ -15,9 +15,13 @@ from figkit.spec import build_spec, fingerprint
 
 min_version("9.0")
 
-validate(config, schema_path("config"))          # structure, with defaults filled in
-FK_CONFIG = validate_config(config, ".")
-FK_ROWS = read_sheet(FK_CONFIG.sheet_path)
+try:   # a mistake in the settings or the sheet's structure: one line, not a schema dump
+    FK_CONFIG = validate_config(config, ".")
+    FK_ROWS = read_sheet(FK_CONFIG.sheet_path)
+except FigkitError as exc:
+    sys.stderr.write(f"figkit: error: {exc}\n")
+    raise SystemExit(2)
+validate(config, schema_path("config"))          # passes now; fills Snakemake's config defaults
 FK_RESULTS = FK_CONFIG["results"]
 FK_FORMATS = FK_CONFIG["formats"]
 import re
