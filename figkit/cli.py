@@ -36,18 +36,20 @@ def _cmd_render(args) -> int:
 
 
 def _cmd_lint(args) -> int:
-    from .data import read_columns
+    """Every check a build makes before drawing: the row, the settings, the style sheet, and the
+    row against its data (columns exist, numbers are numbers, the filter keeps rows, categories
+    are categories), so a sheet that lints clean does not fail at build time for its data."""
+    from .data import load_figure_data
     from .render import load_project
-    from .spec import build_spec, check_columns
+    from .spec import build_spec
     project = load_project(args.project)
-    problems, headers = 0, {}
+    problems = 0
+    limit = int(project.config["stream_above_mb"] * 2 ** 20)
     for row in project.rows:
         try:
             spec = build_spec(row, project.config)
             spec.style.rc                      # parses and checks the style sheet
-            if spec.data_path not in headers:
-                headers[spec.data_path] = read_columns(spec.data_path)
-            check_columns(spec, headers[spec.data_path])
+            load_figure_data(spec, stream_above_bytes=limit)
             if spec.colour:
                 _lint_palette(spec)
         except FigkitError as exc:

@@ -156,9 +156,13 @@ def _check_kind(frame: pd.DataFrame, field: str, need: str, spec: FigureSpec, ro
     if need == NUMERIC and not pd.api.types.is_numeric_dtype(s):
         bad = s[pd.to_numeric(s, errors="coerce").isna() & s.notna()]
         sample = ", ".join(repr(v) for v in pd.unique(bad)[:3])
+        # The frame keeps the file's row positions (0 = first row under the header), so the
+        # first bad value can be found in a spreadsheet: the header is its row 1.
+        first = (f", first at row {int(bad.index[0]) + 2} of the file (header = row 1)"
+                 if len(bad) and pd.api.types.is_integer_dtype(bad.index) else "")
         raise spec.err(f"{role} field '{field}' must be numeric for chart '{spec.chart.name}'",
-                       field=role, value=f"{field} holds text such as {sample}",
-                       allowed="a numeric column")
+                       field=role, value=f"{field} holds text in {len(bad)} rows such as {sample}{first}",
+                       allowed="a numeric column (decimal point, not comma; empty cells for missing)")
     if need == CATEGORY and pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
         distinct = s.nunique()
         if distinct > 50:

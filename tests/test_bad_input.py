@@ -219,3 +219,45 @@ def test_bad_settings_under_snakemake_are_one_line(project, tmp_path, edit, word
     assert len(err) == 1, proc.stderr[-3000:]
     for w in words:
         assert w in err[0], f"'{w}' missing from: {err[0]}"
+
+
+def test_text_in_a_numeric_column_says_how_many_and_where(project, tmp_path):
+    """Decimal commas in a numeric column: the message counts the bad values and gives the first
+    one's row in the file as a spreadsheet numbers it (header = row 1)."""
+    import pandas as pd
+    root = tmp_path / "p"
+    shutil.copytree(project, root, symlinks=True)
+    path = root / "data" / "readings.csv"
+    frame = pd.read_csv(path)
+    frame["water_temp_c"] = frame["water_temp_c"].astype(object)
+    frame.loc[[4, 9, 30], "water_temp_c"] = ["12,5", "13,1", "12,5"]
+    frame.to_csv(path, index=False)
+    write_sheet(root, GOOD)
+    proc = run_render(root, "good")
+    assert proc.returncode == 2
+    err = proc.stderr.strip()
+    assert len(err.splitlines()) == 1 and "Traceback" not in err
+    for w in ("field 'x'", "water_temp_c", "3 rows", "'12,5'", "'13,1'", "row 6 of the file"):
+        assert w in err, f"'{w}' missing from: {err}"
+    # the file's row 6 (header = row 1) really holds the first bad value
+    assert '"12,5"' in path.read_text().splitlines()[5]
+    assert not any(',"' in line for line in path.read_text().splitlines()[1:5])
+
+
+def test_lint_checks_rows_against_their_data(project, tmp_path):
+    """`figkit lint` finds what a build would refuse for its data (a filter that keeps nothing, a
+    continuous field as categories, an unknown column) and passes a good row; one line each."""
+    root = tmp_path / "p"
+    shutil.copytree(project, root, symlinks=True)
+    keep_nothing = dict(GOOD, id="l1", filter="water_temp_c > 1000")
+    continuous = dict(GOOD, id="l2", chart="box", x="conductivity_uscm", y="water_temp_c")
+    unknown = dict(GOOD, id="l3", x="water_temp")
+    write_sheet(root, GOOD, keep_nothing, continuous, unknown)
+    proc = subprocess.run([sys.executable, "-m", "figkit", "lint"], cwd=root, capture_output=True, text=True)
+    assert proc.returncode == 2
+    lines = proc.stderr.strip().splitlines()
+    assert len(lines) == 3 and "Traceback" not in proc.stderr, proc.stderr
+    assert "l1" in lines[0] and "no rows left" in lines[0]
+    assert "l2" in lines[1] and "continuous" in lines[1]
+    assert "l3" in lines[2] and "water_temp" in lines[2]
+    assert "4 figure rows, 3 with problems" in proc.stdout
