@@ -413,152 +413,250 @@ def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
     """Draw the figure; returns (figure, record) where record holds layout and per-panel numbers.
     ``note`` is one line of small print under the x title (the strata comparison, when the house
     style asks for it)."""
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
+    job = _Assembly(spec, data, note)
+    job.make_figure(job.plan_grid())
+    job.draw_panels()
+    job.prepare_texts()
+    job.relayout()
+    job.place_key()
+    job.draw_panel_titles()
+    job.draw_grid_headers()
+    job.draw_axis_titles()
+    job.check_drawn()
+    return job.fig, job.record()
 
-    st = spec.style
-    panels = data.panels
-    n = len(panels)
-    ctx = Context(spec=spec, data=data, panel_mm=(40.0, 30.0))
-    key = _colour_setup(spec, data, ctx)
-    xtitle = bool(spec.x)
-    ytitle = spec.chart.y is not None or spec.chart.name in ("histogram", "density", "count-bars", "shares")
-    # Wrapped panels carry titles; grid panels only when they are lettered (the letter alone).
-    titles = len(spec.strata) == 1 or (spec.letters and spec.grid)
-    tick = _tick_mm(spec)
 
-    est_y = max(_text_width_mm("0000", st.tick_pt), 5.0)
-    if spec.chart.y == "categorical":
-        est_y = max(_text_width_mm(str(v), st.tick_pt) for v in data.levels.get(spec.y, ["x"]))
-    est_x = L.text_mm(st.tick_pt)
-    # Lines given to panel titles and axis titles; grown when the measured text needs two.
-    lines = {"title": 1 if titles else 0, "x": 1 if xtitle else 0, "y": 1 if ytitle else 0}
+class _Assembly:
+    """One figure being put together: its spec and data, the canvas and the axes, the chart
+    kind's context, and where the layout stands now (grid, margins and height last placed, lines
+    given to panel and axis titles, the category label arrangement, the key's place).  Each
+    public method is one step of :func:`build_figure`, in the order it calls them."""
 
-    def margins(legend_w, ytick_w=est_y, xtick_h=est_x):
-        return _margins(spec, title_lines=lines["title"], ytick_w=ytick_w, xtick_h=xtick_h,
-                        legend_w=legend_w, xtitle_lines=lines["x"], ytitle_lines=lines["y"],
-                        note=bool(note))
+    def __init__(self, spec: FigureSpec, data: FigureData, note: str | None):
+        st = spec.style
+        self.spec, self.data, self.note, self.st = spec, data, note, st
+        self.panels = data.panels
+        self.n = len(self.panels)
+        self.ctx = Context(spec=spec, data=data, panel_mm=(40.0, 30.0))
+        self.key = _colour_setup(spec, data, self.ctx)    # 'categories', 'bar' or None
+        self.drawer = DRAWERS[spec.chart.name]
+        self.xtitle = bool(spec.x)
+        self.ytitle = (spec.chart.y is not None or
+                       spec.chart.name in ("histogram", "density", "count-bars", "shares"))
+        # Wrapped panels carry titles; grid panels only when they are lettered (the letter alone).
+        self.titles = len(spec.strata) == 1 or (spec.letters and spec.grid)
+        self.tick = _tick_mm(spec)
+        self.share_x = spec.ranges in ("common", "own-y")
+        self.share_y = spec.ranges in ("common", "own-x")
 
-    def pick(m):
+        # Tick label sizes guessed for the first choice of grid, before anything is drawn.
+        self.est_y = max(_text_width_mm("0000", st.tick_pt), 5.0)
+        if spec.chart.y == "categorical":
+            self.est_y = max(_text_width_mm(str(v), st.tick_pt) for v in data.levels.get(spec.y, ["x"]))
+        self.est_x = L.text_mm(st.tick_pt)
+        # Lines given to panel titles and axis titles; grown when the measured text needs two.
+        self.title_lines = 1 if self.titles else 0
+        self.x_lines = 1 if self.xtitle else 0
+        self.y_lines = 1 if self.ytitle else 0
+
+        # The key: its width beside the grid, whether it sits in an empty cell instead, and the
+        # room the margins keep for it now (grown when it does not fit).
+        self.legend_w = 0.0
+        self.in_cell = False
+        self.legend_room = 0.0
+
+        self.fig = None
+        self.axes: list = []
+        self.records: list = []
+        # Set by place(); grid stays None until the axes have been placed once.
+        self.grid: L.Grid | None = None
+        self.margin: L.Margins | None = None
+        self.height = 0.0
+        self.placed_x_lines = 0     # x title lines when last placed (the key keeps clear of them)
+        # Set by settle(): the tick label sizes measured (mm).
+        self.ytick_w = self.xtick_h = 0.0
+        # Set by prepare_texts().
+        self.category_texts: list[str] = []
+        self.category_x = False     # category labels along x, rearranged when they crowd
+        self.label_step = 0         # index into LABEL_STEPS
+        self.title_texts: list[str] = []
+        self.shown_titles: list[str] = []
+        self.bold = self.plain = None
+
+    # ------------------------------------------------------------------ grid and margins
+
+    def margins(self, legend_w: float, ytick_w: float | None = None,
+                xtick_h: float | None = None) -> L.Margins:
+        """Margins for the current title lines; tick label sizes default to the estimates."""
+        return _margins(self.spec, title_lines=self.title_lines,
+                        ytick_w=self.est_y if ytick_w is None else ytick_w,
+                        xtick_h=self.est_x if xtick_h is None else xtick_h,
+                        legend_w=legend_w, xtitle_lines=self.x_lines, ytitle_lines=self.y_lines,
+                        note=bool(self.note))
+
+    def choose_grid(self, m: L.Margins) -> L.Grid:
+        """The grid for margins ``m``: fixed by the two strata, else the wrap rule; a grid that
+        does not fit is reported against the sheet row."""
+        spec, st = self.spec, self.st
         try:
             if spec.grid:
-                rl, cl = data.grid_levels
+                rl, cl = self.data.grid_levels
                 return L.fixed_grid(len(rl), len(cl), spec.width_mm, m, aspect=st.panel_aspect,
                                     min_panel_mm=st.panel_min_mm, max_height_mm=st.max_height_mm,
                                     height_mm=spec.height_mm)
-            return L.choose_grid(n, spec.width_mm, m, min_panel_mm=st.panel_min_mm,
+            return L.choose_grid(self.n, spec.width_mm, m, min_panel_mm=st.panel_min_mm,
                                  aspect=st.panel_aspect, max_height_mm=st.max_height_mm,
                                  columns=spec.columns, height_mm=spec.height_mm)
         except FigkitError as exc:
             raise exc.at(row=spec.row, figure=spec.id) from None
 
-    # Legend: in an empty cell when the wrapped grid leaves one, else beside the grid.
-    # Scatter may switch to bins (and need a colour bar) only once the panel size is known.
-    legend_w = _legend_width(key, ctx, spec)
-    grid = pick(margins(0.0))
-    in_cell = key is not None and grid.empty_cells > 0 and not spec.grid
-    if key is not None and not in_cell:
-        grid = pick(margins(legend_w))
-    ctx.panel_mm = (grid.panel_w, grid.panel_h)
-    drawer = DRAWERS[spec.chart.name]
-    drawer.prepare(ctx)
-    if spec.chart.name == "scatter" and ctx.shared.get("mode") == "bins" and key is None:
-        key = "bar"
-        legend_w = _legend_width(key, ctx, spec)
-        in_cell = grid.empty_cells > 0 and not spec.grid
-        if not in_cell:
-            grid = pick(margins(legend_w))
-            ctx.panel_mm = (grid.panel_w, grid.panel_h)
+    def plan_grid(self) -> L.Grid:
+        """First choice of grid from estimated text sizes, and of the key's place: in an empty
+        cell when the wrapped grid leaves one, else beside the grid.  Runs the chart kind's
+        prepare, which needs the panel size: scatter may switch to bins there, and then needs a
+        colour bar."""
+        spec, ctx = self.spec, self.ctx
+        self.legend_w = _legend_width(self.key, ctx, spec)
+        grid = self.choose_grid(self.margins(0.0))
+        self.in_cell = self.key is not None and grid.empty_cells > 0 and not spec.grid
+        if self.key is not None and not self.in_cell:
+            grid = self.choose_grid(self.margins(self.legend_w))
+        ctx.panel_mm = (grid.panel_w, grid.panel_h)
+        self.drawer.prepare(ctx)
+        if spec.chart.name == "scatter" and ctx.shared.get("mode") == "bins" and self.key is None:
+            self.key = "bar"
+            self.legend_w = _legend_width(self.key, ctx, spec)
+            self.in_cell = grid.empty_cells > 0 and not spec.grid
+            if not self.in_cell:
+                grid = self.choose_grid(self.margins(self.legend_w))
+                ctx.panel_mm = (grid.panel_w, grid.panel_h)
+        self.legend_room = 0.0 if self.in_cell or self.key is None else self.legend_w
+        return grid
 
-    m = margins(0.0 if in_cell or key is None else legend_w)
-    height = spec.height_mm or L.grid_height(grid.rows, grid.panel_h, m)
-    fig = Figure(figsize=(mm_to_in(spec.width_mm), mm_to_in(height)), dpi=72)
-    FigureCanvasAgg(fig)
+    def extent(self, count: int | None = None) -> tuple[float, float, float, float]:
+        """Left, right, bottom and top (mm) of the first ``count`` panels (all by default) as
+        placed now."""
+        boxes = [L.panel_box(self.grid, i, self.margin, self.height)
+                 for i in range(self.n if count is None else count)]
+        return (min(b[0] for b in boxes), max(b[0] + b[2] for b in boxes),
+                min(b[1] for b in boxes), max(b[1] + b[3] for b in boxes))
 
-    share_x = spec.ranges in ("common", "own-y")
-    share_y = spec.ranges in ("common", "own-x")
-    axes, records = [], []
-    first = None
-    for _ in panels:
-        ax = fig.add_axes((0, 0, 0.1, 0.1), sharex=first if share_x else None,
-                          sharey=first if share_y else None)
-        first = first or ax
-        axes.append(ax)
-    for ax, panel in zip(axes, panels):
-        rec = drawer.draw(ax, panel, ctx) or {}
-        if panel.n == 0:
-            ax.text(0.5, 0.5, "no data", transform=ax.transAxes, ha="center", va="center",
-                    fontsize=st.tick_pt, color="#8A9099")
-            rec.setdefault("notes", []).append("no rows in this panel")
-        records.append(rec)
-    if drawer.finish:
-        drawer.finish(ctx)
-    if ctx.shared.get("mode") == "bins" and spec.chart.name == "scatter":
-        from .charts import finish_hexbins
-        finish_hexbins(ctx)
-    if drawer.zero_y:
-        tops = []
+    # ------------------------------------------------------------------ canvas and panels
+
+    def make_figure(self, grid: L.Grid) -> None:
+        """The canvas at the planned size and one axes per panel, shared as the ranges say.
+        Positions come later (:meth:`place`)."""
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.figure import Figure
+
+        spec = self.spec
+        m = self.margins(self.legend_room)
+        height = spec.height_mm or L.grid_height(grid.rows, grid.panel_h, m)
+        self.fig = Figure(figsize=(mm_to_in(spec.width_mm), mm_to_in(height)), dpi=72)
+        FigureCanvasAgg(self.fig)
+        first = None
+        for _ in self.panels:
+            ax = self.fig.add_axes((0, 0, 0.1, 0.1), sharex=first if self.share_x else None,
+                                   sharey=first if self.share_y else None)
+            first = first or ax
+            self.axes.append(ax)
+
+    def draw_panels(self) -> None:
+        """Each panel drawn by the chart kind ('no data' where a panel is empty), the kind's
+        finish, common limits and the house gridlines."""
+        spec, st, ctx, drawer, axes = self.spec, self.st, self.ctx, self.drawer, self.axes
+        for ax, panel in zip(axes, self.panels):
+            rec = drawer.draw(ax, panel, ctx) or {}
+            if panel.n == 0:
+                ax.text(0.5, 0.5, "no data", transform=ax.transAxes, ha="center", va="center",
+                        fontsize=st.tick_pt, color="#8A9099")
+                rec.setdefault("notes", []).append("no rows in this panel")
+            self.records.append(rec)
+        if drawer.finish:
+            drawer.finish(ctx)
+        if ctx.shared.get("mode") == "bins" and spec.chart.name == "scatter":
+            from .charts import finish_hexbins
+            finish_hexbins(ctx)
+        if drawer.zero_y:
+            tops = []
+            for ax in axes:
+                ax.relim()
+                ax.autoscale_view()
+                tops.append(ax.get_ylim()[1])
+            for ax, top in zip(axes, tops):
+                ax.set_ylim(0, max(tops) if self.share_y else top)
         for ax in axes:
-            ax.relim()
-            ax.autoscale_view()
-            tops.append(ax.get_ylim()[1])
-        for ax, top in zip(axes, tops):
-            ax.set_ylim(0, max(tops) if share_y else top)
-    for ax in axes:
-        if "xlim" in ctx.shared and spec.chart.x == "numeric" and share_x:
-            ax.set_xlim(*ctx.shared["xlim"])
-        if "ylim" in ctx.shared and spec.chart.y == "numeric" and share_y:
-            ax.set_ylim(*ctx.shared["ylim"])
-        grid_axis = {"none": None, "x": "x", "y": "y", "both": "both"}[st.grid]
-        if spec.chart.name not in ("tiles",):
-            ax.grid(False)
-            if grid_axis:
-                ax.grid(True, axis=grid_axis)
-            if spec.chart.x == "categorical":
-                ax.grid(False, axis="x")
+            if "xlim" in ctx.shared and spec.chart.x == "numeric" and self.share_x:
+                ax.set_xlim(*ctx.shared["xlim"])
+            if "ylim" in ctx.shared and spec.chart.y == "numeric" and self.share_y:
+                ax.set_ylim(*ctx.shared["ylim"])
+            grid_axis = {"none": None, "x": "x", "y": "y", "both": "both"}[st.grid]
+            if spec.chart.name not in ("tiles",):
+                ax.grid(False)
+                if grid_axis:
+                    ax.grid(True, axis=grid_axis)
+                if spec.chart.x == "categorical":
+                    ax.grid(False, axis="x")
 
-    category_texts = [str(v) for v in ctx.shared.get("xlevels", [])]
-    label_step = 0
-    legend_room = 0.0 if in_cell or key is None else legend_w
-    state = {}
+    def prepare_texts(self) -> None:
+        """The texts whose room the layout measures: panel titles (the letter leads), the
+        measurers for titles and axis titles, and category labels in their first arrangement."""
+        spec, st = self.spec, self.st
+        self.category_texts = [str(v) for v in self.ctx.shared.get("xlevels", [])]
+        self.category_x = bool(self.category_texts) and spec.chart.x == "categorical"
+        if self.titles:
+            self.title_texts = [_panel_title(p, spec) if not spec.grid else "" for p in self.panels]
+        if spec.letters and self.titles:
+            self.title_texts = [f"{panel_letter(i, st.letters)}  {t}".strip()
+                                for i, t in enumerate(self.title_texts)]
+        self.bold = _measurer(self.fig, st.title_pt, "bold")
+        self.plain = _measurer(self.fig, st.base_pt)
+        if self.category_x:
+            self.set_category_labels(0)
 
-    def apply(g: L.Grid, mm: L.Margins) -> None:
-        """Size the canvas and place every panel for grid ``g``; tick labels only on the outer
+    # ------------------------------------------------------------------ measure and place
+
+    def place(self, grid: L.Grid, margin: L.Margins) -> None:
+        """Size the canvas and place every panel for ``grid``; tick labels only on the outer
         panels when an axis is shared (the rule follows the grid, which may change)."""
-        h = spec.height_mm or L.grid_height(g.rows, g.panel_h, mm)
-        fig.set_size_inches(mm_to_in(spec.width_mm), mm_to_in(h))
-        for i, ax in enumerate(axes):
-            ax.tick_params(labelbottom=not share_x or L.below_empty(g, i),
-                           labelleft=not share_y or i % g.cols == 0)
-            l, b, w, hh = L.panel_box(g, i, mm, h)
+        spec = self.spec
+        h = spec.height_mm or L.grid_height(grid.rows, grid.panel_h, margin)
+        self.fig.set_size_inches(mm_to_in(spec.width_mm), mm_to_in(h))
+        for i, ax in enumerate(self.axes):
+            ax.tick_params(labelbottom=not self.share_x or L.below_empty(grid, i),
+                           labelleft=not self.share_y or i % grid.cols == 0)
+            l, b, w, hh = L.panel_box(grid, i, margin, h)
             ax.set_position((l / spec.width_mm, b / h, w / spec.width_mm, hh / h))
-        state.update(grid=g, m=mm, H=h, xlines=lines["x"])
+        self.grid, self.margin, self.height = grid, margin, h
+        self.placed_x_lines = self.x_lines
 
-    def settle() -> None:
+    def settle(self) -> None:
         """Measure the tick labels drawn, choose the grid again and re-place, until nothing moves.
         After two rounds measurements may only grow, so the loop cannot swing."""
+        fig, axes = self.fig, self.axes
         yw = xh = 0.0
         before = None
         for it in range(8):
             yw_now, xh_now = _measure(fig, axes, "y"), _measure(fig, axes, "x")
             yw, xh = (max(yw, yw_now), max(xh, xh_now)) if it >= 2 else (yw_now, xh_now)
-            mm = margins(legend_room, yw, xh)
-            if "grid" in state:
-                over = _right_overhang(fig, axes, state["grid"])
+            mm = self.margins(self.legend_room, yw, xh)
+            if self.grid is not None:   # x labels of the last column may reach past the panel
+                over = _right_overhang(fig, axes, self.grid)
                 if over + EDGE_MM > mm.right:
                     mm = replace(mm, right=over + EDGE_MM)
-            g = pick(mm)
+            g = self.choose_grid(mm)
             now = (g.rows, g.cols, tuple(round(v, 2) for v in vars(mm).values()))
-            apply(g, mm)
+            self.place(g, mm)
             if now == before:
                 break
             before = now
-        state.update(ytick_w=yw, xtick_h=xh)
+        self.ytick_w, self.xtick_h = yw, xh
 
-    def set_category_labels(step: int) -> None:
+    def set_category_labels(self, step: int) -> None:
+        """Category labels along x in arrangement ``LABEL_STEPS[step]`` (angle, two lines)."""
         angle, two = LABEL_STEPS[step]
-        texts = [_split_even(t) if two and len(t) > WRAP_CHARS else t for t in category_texts]
-        for ax in axes:
+        texts = [_split_even(t) if two and len(t) > WRAP_CHARS else t for t in self.category_texts]
+        for ax in self.axes:
             ax.set_xticks(range(len(texts)), texts)
             for t in ax.get_xticklabels():
                 if angle == 0:
@@ -567,94 +665,172 @@ def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
                     t.set(rotation=angle, ha="right", va="center" if angle == 90 else "top",
                           rotation_mode="anchor", multialignment="right")
 
-    title_texts = [_panel_title(p, spec) if not spec.grid else "" for p in panels] if titles else []
-    if spec.letters and titles:     # the letter leads the title
-        title_texts = [f"{panel_letter(i, st.letters)}  {t}".strip() for i, t in enumerate(title_texts)]
-    bold = _measurer(fig, st.title_pt, "bold")
-    plain = _measurer(fig, st.base_pt)
-
-    def relayout() -> None:
+    def relayout(self) -> None:
         """Settle the grid, then grow titles to two lines or rearrange crowded category labels
         where measurement says so, settling again after each change (changes only go forward)."""
-        nonlocal label_step
         for _ in range(12):
-            settle()
-            g, mm, h = state["grid"], state["m"], state["H"]
-            if titles and lines["title"] == 1 and any(
-                    "\n" in _fit_text(bold, t, g.panel_w, 2) for t in title_texts):
-                lines["title"] = 2
-                continue
-            boxes = [L.panel_box(g, i, mm, h) for i in range(n)]
-            span_w = max(b[0] + b[2] for b in boxes) - min(b[0] for b in boxes)
-            span_h = max(b[1] + b[3] for b in boxes) - min(b[1] for b in boxes)
-            if xtitle and lines["x"] == 1 and "\n" in _fit_text(plain, spec.axis_title(spec.x), span_w, 2):
-                lines["x"] = 2
-                continue
-            if ytitle and lines["y"] == 1 and "\n" in _fit_text(plain, _y_title(spec), span_h, 2):
-                lines["y"] = 2
-                continue
-            if category_texts and spec.chart.x == "categorical":
-                gap = LABEL_GAP_MM if LABEL_STEPS[label_step][0] == 0 else 0.0
-                if label_step < len(LABEL_STEPS) - 1 and _x_labels_clash(fig, axes, gap):
-                    label_step += 1
-                    while (LABEL_STEPS[label_step][1] and label_step < len(LABEL_STEPS) - 1 and
-                           not any(" " in t and len(t) > WRAP_CHARS for t in category_texts)):
-                        label_step += 1   # nothing to put on two lines: skip that arrangement
-                    set_category_labels(label_step)
-                    continue
-            break
+            self.settle()
+            if not self._grow_text():
+                break
 
-    if category_texts and spec.chart.x == "categorical":
-        set_category_labels(0)
-    relayout()
+    def _grow_text(self) -> bool:
+        """Make the first change measurement asks for, in this order: panel titles, x title,
+        y title to two lines, then the next category label arrangement.  False when none."""
+        spec = self.spec
+        if self.titles and self.title_lines == 1 and any(
+                "\n" in _fit_text(self.bold, t, self.grid.panel_w, 2) for t in self.title_texts):
+            self.title_lines = 2
+            return True
+        gx0, gx1, gy0, gy1 = self.extent()
+        if self.xtitle and self.x_lines == 1 and "\n" in _fit_text(self.plain, spec.axis_title(spec.x),
+                                                                   gx1 - gx0, 2):
+            self.x_lines = 2
+            return True
+        if self.ytitle and self.y_lines == 1 and "\n" in _fit_text(self.plain, _y_title(spec), gy1 - gy0, 2):
+            self.y_lines = 2
+            return True
+        if self.category_x:
+            gap = LABEL_GAP_MM if LABEL_STEPS[self.label_step][0] == 0 else 0.0
+            if self.label_step < len(LABEL_STEPS) - 1 and _x_labels_clash(self.fig, self.axes, gap):
+                self.label_step += 1
+                while (LABEL_STEPS[self.label_step][1] and self.label_step < len(LABEL_STEPS) - 1 and
+                       not any(" " in t and len(t) > WRAP_CHARS for t in self.category_texts)):
+                    self.label_step += 1   # nothing to put on two lines: skip that arrangement
+                self.set_category_labels(self.label_step)
+                return True
+        return False
 
-    # The key: drawn, checked against the canvas, the panels and every other text; moved beside
-    # the grid (in-cell) or given more room (beside) when it does not fit.
-    key_artists: list = []
-    for _attempt in range(4):
-        if key is None:
-            break
-        if in_cell and state["grid"].empty_cells == 0:
-            in_cell, legend_room = False, legend_w
-            relayout()
-        key_artists = _place_key(fig, key, ctx, spec, state, in_cell, axes, tick)
-        problem = _key_problem(fig, key_artists, axes)
-        if problem is None:
-            break
-        for a in key_artists:
-            a.remove()
-        key_artists = []
-        if in_cell:
-            in_cell, legend_room = False, legend_w
+    # ------------------------------------------------------------------ the key
+
+    def place_key(self) -> None:
+        """The key: drawn, checked against the canvas, the panels and every other text; moved
+        beside the grid (in-cell) or given more room (beside) when it does not fit."""
+        if self.key is None:
+            return
+        key_artists: list = []
+        for _attempt in range(4):
+            if self.in_cell and self.grid.empty_cells == 0:   # the relayout filled the empty cell
+                self.in_cell, self.legend_room = False, self.legend_w
+                self.relayout()
+            key_artists = self.draw_key()
+            problem = _key_problem(self.fig, key_artists, self.axes)
+            if problem is None:
+                break
+            for a in key_artists:
+                a.remove()
+            key_artists = []
+            if self.in_cell:
+                self.in_cell, self.legend_room = False, self.legend_w
+            else:
+                self.legend_room += max(problem, 1.0)
+            self.relayout()
+        if not key_artists:   # pragma: no cover - every attempt failed
+            self.draw_key()
+            self.ctx.cautions.append("the colour key could not be placed clear of other text")
+
+    def draw_key(self) -> list:
+        """Draw the legend or colour bar; returns the artists added (removable)."""
+        fig, ctx, spec, st = self.fig, self.ctx, self.spec, self.st
+        grid, m, H = self.grid, self.margin, self.height
+        W = spec.width_mm
+        _, gx1, _, gy1 = self.extent(grid.panels)
+        bottom_limit = 0.5 + L.text_mm(st.base_pt, self.placed_x_lines) + 0.3
+        if self.in_cell:
+            c0 = grid.panels % grid.cols
+            l, b, w, h = L.panel_box(grid, (grid.rows - 1) * grid.cols + c0, m, H)
+            x0 = l + 1.0
+            # The empty cell's space starts below the x tick labels of the panel above it.
+            ytop = b + h + m.title + (m.vgap - self.xtick_h - self.tick - 0.5 if grid.rows > 1 else 0.0)
+            room_w, room_h = gx1 - x0, ytop - bottom_limit
         else:
-            legend_room += max(problem, 1.0)
-        relayout()
-    grid, m, H = state["grid"], state["m"], state["H"]
-    W = spec.width_mm
-    if key is not None and not key_artists:   # pragma: no cover - every attempt failed
-        key_artists = _place_key(fig, key, ctx, spec, state, in_cell, axes, tick)
-        ctx.cautions.append("the colour key could not be placed clear of other text")
+            x0 = gx1 + 1.2 + (L.text_mm(st.title_pt) * 2 + 1.2 if spec.grid else 0.0)
+            ytop, room_w, room_h = gy1, W - x0 - EDGE_MM, gy1 - EDGE_MM
+        pt = st.tick_pt
+        if self.key == "categories":
+            handles = _legend_handles(ctx, spec)
+            ncol = 1
+            if self.in_cell:
+                fits = [k for k in range(len(handles), 0, -1)
+                        if all(a <= b for a, b in zip(_legend_size(ctx, spec, k), (room_w, room_h)))]
+                ncol = fits[0] if fits else 1
+            leg = fig.legend(handles=handles, title=ctx.colour_title, loc="upper left",
+                             bbox_to_anchor=(x0 / W, ytop / H), bbox_transform=fig.transFigure, ncol=ncol,
+                             fontsize=pt, title_fontsize=pt, alignment="left",
+                             borderaxespad=0, borderpad=0, columnspacing=1.0)
+            return [leg]
+        import matplotlib.cm as cm
+        import matplotlib.colors as mcolors
+        from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+        # The bar shows the colour scale itself: opaque, even when the marks are translucent.
+        source = ctx.mappables[0] if ctx.mappables else None
+        mappable = cm.ScalarMappable(norm=source.norm if source is not None else ctx.norm,
+                                     cmap=source.get_cmap() if source is not None else ctx.cmap)
+        label_h = L.text_mm(pt)
+        measure = _measurer(fig, pt)
+        if self.in_cell:
+            # Inset by half the widest end label so the labels under the bar stay in the cell.
+            inset = measure("00000") / 2
+            bw = max(10.0, min(room_w - 2 * inset, 40.0))
+            title = _shorten_middle(measure, ctx.colour_title, room_w)
+            cax = fig.add_axes(((x0 + inset) / W, (ytop - label_h - 0.5 - 2.2) / H, bw / W, 2.2 / H),
+                               label="<colorbar>")   # matplotlib's own name for a colour-bar axes
+            bar = fig.colorbar(mappable, cax=cax, orientation="horizontal")
+            text = fig.text(x0 / W, (ytop - label_h) / H, title, fontsize=pt, ha="left", va="bottom")
+        else:
+            lines = _wrap_measured(measure, ctx.colour_title, room_w)
+            # The top tick label reaches half a line above the bar: keep it clear of the title.
+            title_h = L.text_mm(pt, len(lines)) + 0.6 + label_h / 2
+            bh = min(35.0, max(12.0, ytop - title_h - 8))
+            cax = fig.add_axes((x0 / W, (ytop - title_h - bh) / H, 2.4 / W, bh / H), label="<colorbar>")
+            bar = fig.colorbar(mappable, cax=cax, orientation="vertical")
+            text = fig.text(x0 / W, ytop / H, "\n".join(lines), fontsize=pt, ha="left", va="top",
+                            linespacing=1.1)
+        measure.close()
+        norm = mappable.norm
+        if isinstance(norm, mcolors.LogNorm):
+            decades = np.log10(max(norm.vmax, 1.0) / max(norm.vmin, 1e-12))
+            bar.locator = LogLocator(base=10, subs=(1.0,) if decades >= 2 else (1.0, 2.0, 5.0))
+            bar.formatter = FuncFormatter(_count_label)
+            bar.minorformatter = NullFormatter()
+        bar.outline.set_linewidth(0.4)
+        # Edges between colour steps are not drawn; the empty divider set would still count as a
+        # (too thin) line in the house minimum check.
+        bar.dividers.set_visible(False)
+        bar.ax.tick_params(labelsize=pt, width=0.4, length=1.5)
+        return [cax, text]
 
-    def fx(mm):
-        return mm / W
+    # ------------------------------------------------------------------ titles
 
-    def fy(mm):
-        return mm / H
+    def _fx(self, mm: float) -> float:
+        return mm / self.spec.width_mm
 
-    # Panel titles (fitted) or row/column headers (two-way grid), in our own look: left-aligned
-    # titles over a hairline rule for wrapped panels; headers with a rule for grids.
-    shown_titles = []
-    if titles:
-        for i, text in enumerate(title_texts):
-            l, b, w, h = L.panel_box(grid, i, m, H)
-            fitted = _fit_text(bold, text, w, lines["title"])
-            shown_titles.append(fitted)
-            fig.text(fx(l), fy(b + h + 0.55), fitted, fontsize=st.title_pt, fontweight="bold",
-                     ha="left", va="bottom", linespacing=1.1)
-            fig.add_artist(_rule(fig, fx(l), fx(l + w), fy(b + h + 0.35)))
-    if spec.grid:
+    def _fy(self, mm: float) -> float:
+        return mm / self.height
+
+    def draw_panel_titles(self) -> None:
+        """Panel titles, fitted, in our own look: left-aligned over a hairline rule."""
+        st, fx, fy = self.st, self._fx, self._fy
+        self.shown_titles = []
+        if not self.titles:
+            return
+        for i, text in enumerate(self.title_texts):
+            l, b, w, h = L.panel_box(self.grid, i, self.margin, self.height)
+            fitted = _fit_text(self.bold, text, w, self.title_lines)
+            self.shown_titles.append(fitted)
+            self.fig.text(fx(l), fy(b + h + 0.55), fitted, fontsize=st.title_pt, fontweight="bold",
+                          ha="left", va="bottom", linespacing=1.1)
+            self.fig.add_artist(_rule(self.fig, fx(l), fx(l + w), fy(b + h + 0.35)))
+
+    def draw_grid_headers(self) -> None:
+        """Row and column headers of a two-way grid, each with a rule, and the two strata's
+        names over them."""
+        spec, st, fig, fx, fy = self.spec, self.st, self.fig, self._fx, self._fy
+        if not spec.grid:
+            return
+        grid, m, H = self.grid, self.margin, self.height
+        bold = self.bold
         rf, cf = spec.strata
-        rl, cl = data.grid_levels
+        rl, cl = self.data.grid_levels
         title_w = _measurer(fig, st.title_pt)
         l0, b0, w0, h0 = L.panel_box(grid, 0, m, H)
         top_of_grid = b0 + h0
@@ -663,10 +839,9 @@ def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
             fig.text(fx(l + w / 2), fy(top_of_grid + 0.6), _shorten_middle(title_w, str(cv), w),
                      fontsize=st.title_pt, ha="center", va="bottom")
             fig.add_artist(_rule(fig, fx(l), fx(l + w), fy(top_of_grid + 0.4)))
-        lw0, _, ww, _ = L.panel_box(grid, 0, m, H)
         lw1, _, _, _ = L.panel_box(grid, grid.cols - 1, m, H)
-        fig.text(fx((lw0 + lw1 + ww) / 2), fy(top_of_grid + 0.6 + L.text_mm(st.title_pt) + 0.3),
-                 _shorten_middle(bold, spec.labels.get(cf, (cf, ""))[0], lw1 + ww - lw0),
+        fig.text(fx((l0 + lw1 + w0) / 2), fy(top_of_grid + 0.6 + L.text_mm(st.title_pt) + 0.3),
+                 _shorten_middle(bold, spec.labels.get(cf, (cf, ""))[0], lw1 + w0 - l0),
                  fontsize=st.title_pt, fontweight="bold", ha="center", va="bottom")
         right_edge = None
         for i, rv in enumerate(rl):
@@ -684,61 +859,71 @@ def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
                  rotation_mode="anchor")
         title_w.close()
 
-    # One x title and one y title for the whole figure, with units.
-    boxes = [L.panel_box(grid, i, m, H) for i in range(n)]
-    gx0 = min(b[0] for b in boxes)
-    gx1 = max(b[0] + b[2] for b in boxes)
-    gy0 = min(b[1] for b in boxes)
-    gy1 = max(b[1] + b[3] for b in boxes)
-    note_h = L.text_mm(st.tick_pt) + 0.4 if note else 0.0
-    if note:
-        fig.text(fx(gx0), fy(0.5), _fit_text(plain, note, gx1 - gx0, 1), fontsize=st.tick_pt,
-                 ha="left", va="bottom", color="#5A5F66")
-    if xtitle:
-        fig.text(fx((gx0 + gx1) / 2), fy(0.5 + note_h),
-                 _fit_text(plain, spec.axis_title(spec.x), gx1 - gx0, lines["x"]),
-                 fontsize=st.base_pt, ha="center", va="bottom", linespacing=1.1)
-    if ytitle:
-        # Anchored before rotation: the text's top (its left side once turned) sits at 0.5 mm.
-        fig.text(fx(0.5), fy((gy0 + gy1) / 2), _fit_text(plain, _y_title(spec), gy1 - gy0, lines["y"]),
-                 fontsize=st.base_pt, rotation=90, ha="center", va="top", rotation_mode="anchor",
-                 linespacing=1.1)
-    bold.close()
-    plain.close()
+    def draw_axis_titles(self) -> None:
+        """One x title and one y title for the whole figure, with units, and the note under the
+        x title.  These are the last fitted texts, so the measurers are closed here."""
+        spec, st, fig, fx, fy = self.spec, self.st, self.fig, self._fx, self._fy
+        gx0, gx1, gy0, gy1 = self.extent()
+        note_h = L.text_mm(st.tick_pt) + 0.4 if self.note else 0.0
+        if self.note:
+            fig.text(fx(gx0), fy(0.5), _fit_text(self.plain, self.note, gx1 - gx0, 1), fontsize=st.tick_pt,
+                     ha="left", va="bottom", color="#5A5F66")
+        if self.xtitle:
+            fig.text(fx((gx0 + gx1) / 2), fy(0.5 + note_h),
+                     _fit_text(self.plain, spec.axis_title(spec.x), gx1 - gx0, self.x_lines),
+                     fontsize=st.base_pt, ha="center", va="bottom", linespacing=1.1)
+        if self.ytitle:
+            # Anchored before rotation: the text's top (its left side once turned) sits at 0.5 mm.
+            fig.text(fx(0.5), fy((gy0 + gy1) / 2),
+                     _fit_text(self.plain, _y_title(spec), gy1 - gy0, self.y_lines),
+                     fontsize=st.base_pt, rotation=90, ha="center", va="top", rotation_mode="anchor",
+                     linespacing=1.1)
+        self.bold.close()
+        self.plain.close()
 
-    notes = _fit_tile_numbers(fig, axes, ctx) if spec.chart.name == "tiles" else None
-    if notes:
-        ctx.cautions.append(notes)
-    _pin_ticks(fig)
-    from .checks import text_collisions
-    fig.draw_without_rendering()   # legends place their texts only when drawn
-    clashes = text_collisions(fig)
-    if clashes:
-        a, b = clashes[0]
-        ctx.cautions.append(f"{len(clashes)} text overlap(s) remain, e.g. '{a[:30]}' / '{b[:30]}'; "
-                            "try a wider size preset or fewer panel columns")
+    # ------------------------------------------------------------------ checks and record
 
-    angle, two = LABEL_STEPS[label_step]
-    record = {
-        "size_mm": [round(W, 3), round(H, 3)],
-        "layout": {"rows": grid.rows, "cols": grid.cols, "panels": n,
-                   "panel_mm": [round(grid.panel_w, 2), round(grid.panel_h, 2)],
-                   "empty_cells": grid.empty_cells, "key": key,
-                   "key_place": None if key is None else ("empty cell" if in_cell else "right"),
-                   "x_labels_tilted": bool(category_texts and angle != 0),
-                   "x_label_angle": angle if category_texts else 0,
-                   "x_labels_two_lines": bool(category_texts and two),
-                   "title_lines": lines["title"],
-                   "titles_shortened": sum(ELLIPSIS in t and ELLIPSIS not in s
-                                           for t, s in zip(shown_titles, title_texts))},
-        "panel_records": records,
-        "colours": ctx.used_colours,
-        "cautions": ctx.cautions,
-        "shared": {k: v for k, v in ctx.shared.items() if k in ("mode", "alpha", "densest", "bin_rule")},
-    }
-    if "edges" in ctx.shared:
-        record["bin_edges"] = [float(e) for e in ctx.shared["edges"]]
-    return fig, record
+    def check_drawn(self) -> None:
+        """Tile counts kept only where all fit, ticks pinned to what is drawn, and remaining text
+        overlaps reported as a caution."""
+        ctx, fig = self.ctx, self.fig
+        notes = _fit_tile_numbers(fig, self.axes, ctx) if self.spec.chart.name == "tiles" else None
+        if notes:
+            ctx.cautions.append(notes)
+        _pin_ticks(fig)
+        from .checks import text_collisions
+        fig.draw_without_rendering()   # legends place their texts only when drawn
+        clashes = text_collisions(fig)
+        if clashes:
+            a, b = clashes[0]
+            ctx.cautions.append(f"{len(clashes)} text overlap(s) remain, e.g. '{a[:30]}' / '{b[:30]}'; "
+                                "try a wider size preset or fewer panel columns")
+
+    def record(self) -> dict:
+        """Layout and per-panel numbers for the sidecar."""
+        grid, ctx, key = self.grid, self.ctx, self.key
+        angle, two = LABEL_STEPS[self.label_step]
+        category_texts = self.category_texts
+        record = {
+            "size_mm": [round(self.spec.width_mm, 3), round(self.height, 3)],
+            "layout": {"rows": grid.rows, "cols": grid.cols, "panels": self.n,
+                       "panel_mm": [round(grid.panel_w, 2), round(grid.panel_h, 2)],
+                       "empty_cells": grid.empty_cells, "key": key,
+                       "key_place": None if key is None else ("empty cell" if self.in_cell else "right"),
+                       "x_labels_tilted": bool(category_texts and angle != 0),
+                       "x_label_angle": angle if category_texts else 0,
+                       "x_labels_two_lines": bool(category_texts and two),
+                       "title_lines": self.title_lines,
+                       "titles_shortened": sum(ELLIPSIS in t and ELLIPSIS not in s
+                                               for t, s in zip(self.shown_titles, self.title_texts))},
+            "panel_records": self.records,
+            "colours": ctx.used_colours,
+            "cautions": ctx.cautions,
+            "shared": {k: v for k, v in ctx.shared.items() if k in ("mode", "alpha", "densest", "bin_rule")},
+        }
+        if "edges" in ctx.shared:
+            record["bin_edges"] = [float(e) for e in ctx.shared["edges"]]
+        return record
 
 
 def _y_title(spec: FigureSpec) -> str:
@@ -775,80 +960,6 @@ def _fit_tile_numbers(fig, axes, ctx: Context) -> str | None:
             return (f"tile counts not printed: tiles of {_mm(fig, cell_w):.1f} x {_mm(fig, cell_h):.1f} mm "
                     f"are too small for {ctx.spec.style.tick_pt:g} pt numbers")
     return None
-
-
-def _place_key(fig, key, ctx: Context, spec: FigureSpec, state: dict, in_cell: bool, axes, tick) -> list:
-    """Draw the legend or colour bar; returns the artists added (removable)."""
-    st = spec.style
-    grid, m, H = state["grid"], state["m"], state["H"]
-    W = spec.width_mm
-    boxes = [L.panel_box(grid, i, m, H) for i in range(grid.panels)]
-    gx1 = max(b[0] + b[2] for b in boxes)
-    gy1 = max(b[1] + b[3] for b in boxes)
-    bottom_limit = 0.5 + L.text_mm(st.base_pt, state["xlines"]) + 0.3
-    if in_cell:
-        c0 = grid.panels % grid.cols
-        l, b, w, h = L.panel_box(grid, (grid.rows - 1) * grid.cols + c0, m, H)
-        x0 = l + 1.0
-        # The empty cell's space starts below the x tick labels of the panel above it.
-        ytop = b + h + m.title + (m.vgap - state["xtick_h"] - tick - 0.5 if grid.rows > 1 else 0.0)
-        room_w, room_h = gx1 - x0, ytop - bottom_limit
-    else:
-        x0 = gx1 + 1.2 + (L.text_mm(st.title_pt) * 2 + 1.2 if spec.grid else 0.0)
-        ytop, room_w, room_h = gy1, W - x0 - EDGE_MM, gy1 - EDGE_MM
-    pt = st.tick_pt
-    if key == "categories":
-        handles = _legend_handles(ctx, spec)
-        ncol = 1
-        if in_cell:
-            fits = [k for k in range(len(handles), 0, -1)
-                    if all(a <= b for a, b in zip(_legend_size(ctx, spec, k), (room_w, room_h)))]
-            ncol = fits[0] if fits else 1
-        leg = fig.legend(handles=handles, title=ctx.colour_title, loc="upper left",
-                         bbox_to_anchor=(x0 / W, ytop / H), bbox_transform=fig.transFigure, ncol=ncol,
-                         fontsize=pt, title_fontsize=pt, alignment="left",
-                         borderaxespad=0, borderpad=0, columnspacing=1.0)
-        return [leg]
-    import matplotlib.cm as cm
-    import matplotlib.colors as mcolors
-    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
-    # The bar shows the colour scale itself: opaque, even when the marks are translucent.
-    source = ctx.mappables[0] if ctx.mappables else None
-    mappable = cm.ScalarMappable(norm=source.norm if source is not None else ctx.norm,
-                                 cmap=source.get_cmap() if source is not None else ctx.cmap)
-    label_h = L.text_mm(pt)
-    measure = _measurer(fig, pt)
-    if in_cell:
-        # Inset by half the widest end label so the labels under the bar stay in the cell.
-        inset = measure("00000") / 2
-        bw = max(10.0, min(room_w - 2 * inset, 40.0))
-        title = _shorten_middle(measure, ctx.colour_title, room_w)
-        cax = fig.add_axes(((x0 + inset) / W, (ytop - label_h - 0.5 - 2.2) / H, bw / W, 2.2 / H),
-                           label="<colorbar>")   # matplotlib's own name for a colour-bar axes
-        bar = fig.colorbar(mappable, cax=cax, orientation="horizontal")
-        text = fig.text(x0 / W, (ytop - label_h) / H, title, fontsize=pt, ha="left", va="bottom")
-    else:
-        lines = _wrap_measured(measure, ctx.colour_title, room_w)
-        # The top tick label reaches half a line above the bar: keep it clear of the title.
-        title_h = L.text_mm(pt, len(lines)) + 0.6 + label_h / 2
-        bh = min(35.0, max(12.0, ytop - title_h - 8))
-        cax = fig.add_axes((x0 / W, (ytop - title_h - bh) / H, 2.4 / W, bh / H), label="<colorbar>")
-        bar = fig.colorbar(mappable, cax=cax, orientation="vertical")
-        text = fig.text(x0 / W, ytop / H, "\n".join(lines), fontsize=pt, ha="left", va="top",
-                        linespacing=1.1)
-    measure.close()
-    norm = mappable.norm
-    if isinstance(norm, mcolors.LogNorm):
-        decades = np.log10(max(norm.vmax, 1.0) / max(norm.vmin, 1e-12))
-        bar.locator = LogLocator(base=10, subs=(1.0,) if decades >= 2 else (1.0, 2.0, 5.0))
-        bar.formatter = FuncFormatter(_count_label)
-        bar.minorformatter = NullFormatter()
-    bar.outline.set_linewidth(0.4)
-    # Edges between colour steps are not drawn; the empty divider set would still count as a
-    # (too thin) line in the house minimum check.
-    bar.dividers.set_visible(False)
-    bar.ax.tick_params(labelsize=pt, width=0.4, length=1.5)
-    return [cax, text]
 
 
 def _key_problem(fig, artists: list, axes) -> float | None:
