@@ -196,10 +196,6 @@ def prepare_scatter(ctx: Context) -> None:
     from its densest panel, so every panel reads the same way)."""
     spec, panels = ctx.spec, ctx.data.panels
     x, y = _values(panels, spec.x), _values(panels, spec.y)
-    ctx.shared["xlim"] = padded_range(np.nanmin(x), np.nanmax(x)) if x.size else (0, 1)
-    ctx.shared["ylim"] = padded_range(np.nanmin(y), np.nanmax(y)) if y.size else (0, 1)
-    marker_mm = pt_to_mm(float(spec.style.rc.get("lines.markersize", 2.5)))
-    cells = (max(1, int(ctx.panel_mm[0] / marker_mm)), max(1, int(ctx.panel_mm[1] / marker_mm)))
     forced = spec.options.get("points", "auto")
     jitter = {}
     if forced in ("auto", "jitter") and x.size:
@@ -207,6 +203,13 @@ def prepare_scatter(ctx: Context) -> None:
             gap = _discrete_gap(v)
             if gap is not None:
                 jitter[axis] = 0.4 * gap   # < half the gap: a point never reaches the next value
+    # The common ranges hold every point as drawn: jittered ones reach jitter width beyond the
+    # outermost values, and a range cut at the values would hide them while n still counts them.
+    wx, wy = jitter.get("x", 0.0), jitter.get("y", 0.0)
+    ctx.shared["xlim"] = padded_range(np.nanmin(x) - wx, np.nanmax(x) + wx) if x.size else (0, 1)
+    ctx.shared["ylim"] = padded_range(np.nanmin(y) - wy, np.nanmax(y) + wy) if y.size else (0, 1)
+    marker_mm = pt_to_mm(float(spec.style.rc.get("lines.markersize", 2.5)))
+    cells = (max(1, int(ctx.panel_mm[0] / marker_mm)), max(1, int(ctx.panel_mm[1] / marker_mm)))
     rng = np.random.default_rng(JITTER_SEED)
     coords, densest, own = {}, 0, {}
     for p in panels:

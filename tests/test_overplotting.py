@@ -96,3 +96,25 @@ def test_jitter_never_crosses_half_the_gap(tmp_path):
     assert np.max(np.abs(drawn - nearest)) <= 0.4 + 1e-12     # 0.4 of the gap of 1: < half
     assert np.array_equal(np.bincount(nearest.astype(int), minlength=6),
                           np.bincount(df["x"].astype(int), minlength=6))
+
+
+@pytest.mark.parametrize("strata", ["", "g"])
+def test_every_jittered_point_is_inside_the_axes(tmp_path, strata):
+    """A jittered point reaches 0.4 of the gap beyond the outermost value; the common axis range
+    must hold it, or the figure hides rows its sidecar counts (n).  No outside source: the
+    count drawn inside the view must equal the rows (common practice)."""
+    rng = np.random.default_rng(3)
+    n = 4000
+    df = pd.DataFrame({"g": np.repeat(["a", "b"], n // 2),
+                       "x": rng.integers(2022, 2026, n).astype(float),    # four years
+                       "y": rng.normal(50, 10, n)})
+    fig = _fig(_project(tmp_path, df), chart="scatter", x="x", y="y", strata=strata)
+    inside = 0
+    for ax in fig.axes:
+        (x0, x1), (y0, y1) = sorted(ax.get_xlim()), sorted(ax.get_ylim())
+        for c in ax.collections:
+            xy = np.asarray(c.get_offsets())
+            if len(xy) < 2:
+                continue
+            inside += int(((xy[:, 0] >= x0) & (xy[:, 0] <= x1) & (xy[:, 1] >= y0) & (xy[:, 1] <= y1)).sum())
+    assert inside == n
