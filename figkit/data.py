@@ -123,6 +123,28 @@ class Panel:
         return self.tally.n if self.tally is not None else len(self.frame)
 
 
+def order_notes(fld: str, order: list, values) -> list[str]:
+    """Cautions for an ``orders:`` list that does not match a field's values in the data file: a
+    listed value the file never holds is most likely a typo, and the value meant is then placed
+    (and coloured) as an unlisted one, so a category would change colour between figures."""
+    import difflib
+    have = {str(v) for v in values}
+    listed = [str(v) for v in order]
+    missing = [v for v in listed if v not in have]
+    unlisted = sorted(have - set(listed), key=natural_key)
+    out = []
+    if missing:
+        close = {m: difflib.get_close_matches(m, unlisted or sorted(have), n=1, cutoff=0.6) for m in missing}
+        hints = [f"'{m}'" + (f" (did you mean '{close[m][0]}'?)" if close[m] else "") for m in missing]
+        out.append(f"orders: the list for '{fld}' names {', '.join(hints)}, which the data never "
+                   "hold; check the spelling in config.yaml")
+    if unlisted:
+        more = f" and {len(unlisted) - 5} more" if len(unlisted) > 5 else ""
+        out.append(f"orders: '{fld}' has values the list leaves out ({', '.join(map(repr, unlisted[:5]))}"
+                   f"{more}); they come after the listed ones, so their colours depend on the figure")
+    return out
+
+
 @dataclass(eq=False)
 class FigureData:
     panels: list[Panel]
@@ -134,6 +156,7 @@ class FigureData:
     grid_levels: tuple = ()       # two-way grid: (row levels, col levels)
     streamed: dict | None = None  # set when the data were read chunk by chunk
     present: dict = field(default_factory=dict)   # colour field -> values kept by the filter
+    notes: list = field(default_factory=list)     # cautions about the data (orders lists, ...)
 
 
 def _factorized(values: pd.Series, fld: str, spec: FigureSpec) -> tuple[np.ndarray, list]:
@@ -211,6 +234,11 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     n_read = len(frame)
     for banding in spec.bandings:
         frame[banding.name] = apply_banding(frame[banding.source], banding)
+    notes = []
+    banded = {b.name for b in spec.bandings}
+    for fld in dict.fromkeys(f for f in (spec.x, spec.y, spec.colour, *spec.strata) if f):
+        if spec.orders.get(fld) is not None and fld not in banded:   # before the filter: whole file
+            notes += order_notes(fld, spec.orders[fld], pd.unique(frame[fld].dropna()))
 
     # Colour levels are taken before the filter so that a category keeps its colour in every
     # figure of the dataset, whatever the figure keeps.  A numeric colour field with few distinct
@@ -288,6 +316,7 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     data = FigureData(panels, [input_record(path, rel_to or spec.root)], n_read, n_kept, levels,
                       n_unassigned, grid_levels)
     data.present = present
+    data.notes = notes
     return data
 
 

@@ -203,7 +203,7 @@ def _render(project: Project, row: SheetRow) -> dict:
 
         from .colour import check_separability, separability
         sep = separability(drawn["colours"])
-        cautions = list(drawn["cautions"])
+        cautions = list(data.notes) + list(drawn["cautions"])
         # Greyscale is reported, not judged: most qualitative palettes fail it by design.
         collisions = check_separability(drawn["colours"], spec.style.min_colour_difference)
         judged = [c for c in collisions if "greyscale" not in c]

@@ -261,3 +261,24 @@ def test_lint_checks_rows_against_their_data(project, tmp_path):
     assert "l2" in lines[1] and "continuous" in lines[1]
     assert "l3" in lines[2] and "water_temp" in lines[2]
     assert "4 figure rows, 3 with problems" in proc.stdout
+
+
+def test_a_misspelt_orders_value_is_a_caution_with_the_likely_value(project, tmp_path):
+    """`orders:` naming a value the data never hold (a typo) would silently move the value meant
+    to the end and change its colour: the build says so, naming the likely value (difflib's
+    closest match; no outside source)."""
+    root = tmp_path / "p"
+    shutil.copytree(project, root, symlinks=True)
+    cfg = root / "config" / "config.yaml"
+    assert "land_use: [forest, pasture, arable, urban]" in cfg.read_text()
+    cfg.write_text(cfg.read_text().replace("land_use: [forest, pasture, arable, urban]",
+                                           "land_use: [forest, pastre, arable, urban]"))
+    write_sheet(root, GOOD)
+    from figkit.render import load_project, render
+    car = render(load_project(root), "good")
+    notes = [c for c in car["cautions"] if c.startswith("orders:")]
+    assert any("'pastre'" in c and "did you mean 'pasture'" in c for c in notes), notes
+    assert any("'pasture'" in c and "leaves out" in c for c in notes), notes
+    # the correct list gives no such caution
+    cfg.write_text(cfg.read_text().replace("pastre", "pasture"))
+    assert not [c for c in render(load_project(root), "good")["cautions"] if c.startswith("orders:")]
