@@ -589,9 +589,39 @@ def preflight_project(project, ids=(), *, strict: bool = False) -> list[tuple[st
                 _check("built", False, None, None, f"no {sidecar.name}; build the figure first")]}))
             continue
         result = preflight_figure(sidecar, style, strict=use_strict)
+        result["checks"].append(_up_to_date_check(sidecar, project, fid))
+        result["passed"] = result["passed"] and result["checks"][-1]["passed"]
         result["strict"] = use_strict
         out.append((fid, result))
+    if not ids:     # figure files whose row is gone: still in the folder, in no build
+        folder = project.config.results / "figures"
+        for sidecar in sorted(folder.glob("*.json")) if folder.is_dir() else []:
+            if sidecar.stem not in known:
+                out.append((sidecar.stem, {"passed": True, "strict": False, "checks": [_check(
+                    "in the sheet", False, sidecar.stem, known, f"{sidecar.stem}.* are from a "
+                    "figure no longer in the sheet; delete them if they are not wanted",
+                    level="warning")]}))
     return out
+
+
+def _up_to_date_check(sidecar: Path, project, fid: str) -> dict:
+    """The figure was built from the data files and the sheet row as they are now: their SHA-256
+    equal the sidecar's (a figure left behind by a failed or partial build is caught here)."""
+    from .data import input_record
+    from .provenance import row_sha256
+    from .sheet import find_row
+    record = json.loads(sidecar.read_text(encoding="utf-8"))
+    path = project.spec(fid).data_path
+    changed = []
+    if not path.is_file():
+        changed.append(f"{path.name} (missing)")
+    elif [input_record(path, project.config.root)] != record.get("inputs"):
+        changed.append(input_record(path, project.config.root)["path"])
+    if row_sha256(find_row(project.rows, fid).cells) != record.get("row_sha256"):
+        changed.append("its sheet row")
+    return _check("up to date", not changed, changed or None, "inputs and row as built",
+                  ("changed since the figure was built: " + ", ".join(changed) + "; rebuild it")
+                  if changed else "data files and sheet row unchanged since the build")
 
 
 def failure_lines(figure_id: str, result: dict) -> list[str]:

@@ -49,6 +49,11 @@ def sha256_text(text: str) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
+def row_sha256(cells: dict) -> str:
+    """The sidecar's ``row_sha256``: SHA-256 of the row's cells as sorted JSON."""
+    return sha256_text(json.dumps(cells, sort_keys=True, ensure_ascii=False))
+
+
 def clean(value):
     """JSON-ready copy: numpy scalars to Python, NaN/inf to None, floats rounded to 10 significant
     digits so the sidecar is stable across platforms' last-bit differences."""

@@ -179,7 +179,6 @@ def _render(project: Project, row: SheetRow) -> dict:
     data = load_figure_data(spec, stream_above_bytes=int(project.config["stream_above_mb"] * 2 ** 20))
     out_dir = project.config.results / "figures"
     results_rel = project.config["results"]
-    row_json = json.dumps(row.cells, sort_keys=True, ensure_ascii=False)
 
     strata = strata_comparison(spec, data)
     with mpl.rc_context(spec.style.rc):
@@ -245,7 +244,7 @@ def _render(project: Project, row: SheetRow) -> dict:
             "min_line_pt": sizes.min_line_pt,
             "cautions": cautions,
             "style": {"name": spec.style.name, "files": spec.style.digest()},
-            "row_sha256": P.sha256_text(row_json),
+            "row_sha256": P.row_sha256(row.cells),
             "rebuild": rebuild_command(spec, results_rel),
             "versions": {**P.versions(), "font": P.font_file(spec.style.rc.get("font.family", ["DejaVu Sans"])[0]
                                                             if isinstance(spec.style.rc.get("font.family"), list)

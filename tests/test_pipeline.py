@@ -225,3 +225,17 @@ def test_the_same_interpreter_by_another_path_reruns_nothing(built_demo):
     assert proc.returncode == 0, proc.stderr[-2000:]
     assert _scheduled(proc) == []
     assert "Nothing to be done" in proc.stdout + proc.stderr
+
+
+def test_a_removed_row_leaves_its_files_and_the_build_says_so(built_demo, tmp_path):
+    """Removing a row deletes nothing (the files may be wanted), but every build names the figures
+    whose files are no longer backed by a row; nothing is scheduled for them."""
+    project = tmp_path / "p"
+    shutil.copytree(built_demo, project, symlinks=True)
+    sheet = project / "config" / "figures.tsv"
+    sheet.write_text("".join(ln for ln in sheet.read_text().splitlines(keepends=True)
+                             if not ln.startswith("taxa-tiles\t")))
+    proc = snakemake(project, "-n", "-p")
+    assert "no longer in the sheet: taxa-tiles" in proc.stderr
+    assert (project / "results" / "figures" / "taxa-tiles.png").is_file()
+    assert _scheduled(proc) == []

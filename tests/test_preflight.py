@@ -298,3 +298,37 @@ def test_bad_limits_are_one_line_errors():
         preflight({}, **{**LIMITS, "min_text_pt": 0})
     with pytest.raises(FigkitError, match="sizes_mm"):
         preflight({}, **{**LIMITS, "sizes_mm": {}})
+
+
+def test_preflight_finds_figures_older_than_their_data_or_row(project, tmp_path):
+    """A figure left behind by a failed or partial build: its sidecar's SHA-256 of the data file
+    (FIPS 180-4 SHA-256, Python's hashlib) or of its sheet row no longer matches; a figure whose
+    row was removed from the sheet is a warning.  Common practice, no outside source: a figure
+    submitted must show the data as they are."""
+    from figkit.preflight import preflight_project
+    from figkit.render import load_project
+    root = tmp_path / "p"
+    shutil.copytree(project, root)
+    fresh = dict(preflight_project(load_project(root), CLEAN_IDS))
+    assert all(check(r, "up to date")["passed"] for r in fresh.values())
+    # one more reading in the data file: both figures read it
+    data = root / "data" / "readings.csv"
+    lines = data.read_text().splitlines(keepends=True)
+    data.write_text("".join(lines + [lines[-1]]))
+    stale = dict(preflight_project(load_project(root), CLEAN_IDS))
+    c = check(stale["temperature-histogram"], "up to date")
+    assert not c["passed"] and c["value"] == ["data/readings.csv"] and "rebuild" in c["message"]
+    assert not stale["temperature-histogram"]["passed"]
+    # an edited row: named too
+    sheet = root / "config" / "figures.tsv"
+    text = sheet.read_text()
+    assert "Water temperature in each catchment" in text
+    sheet.write_text(text.replace("Water temperature in each catchment", "Water temperature by catchment"))
+    c = check(dict(preflight_project(load_project(root), CLEAN_IDS))["temperature-histogram"], "up to date")
+    assert c["value"] == ["data/readings.csv", "its sheet row"]
+    # a row removed from the sheet: its files are reported (warning) when the whole sheet is checked
+    kept = [ln for ln in sheet.read_text().splitlines(keepends=True) if not ln.startswith("sensitive-share\t")]
+    sheet.write_text("".join(kept))
+    every = dict(preflight_project(load_project(root)))
+    orphan = check(every["sensitive-share"], "in the sheet")
+    assert orphan["level"] == "warning" and "no longer in the sheet" in orphan["message"]

@@ -89,8 +89,13 @@ for _row in FK_ROWS:
     elif not FK_ID.match(_row.id):
         note = "this row cannot be built; fix its id"
     else:
-        note = "this figure will fail; the others build"
+        note = "this figure will fail; snakemake --keep-going builds the others"
     sys.stderr.write(f"figkit: {_row.error} ({note})\n")
+
+_FK_OLD = sorted(p.stem for p in (Path(FK_RESULTS) / "figures").glob("*.json") if p.stem not in FK_BY_ID)
+if _FK_OLD:   # files of removed rows stay in the folder; say so once, delete nothing
+    sys.stderr.write(f"figkit: results/figures holds figures no longer in the sheet: "
+                     f"{', '.join(_FK_OLD)} (delete their files if they are not wanted)\n")
 
 
 def _write_stamp(rid: str) -> None:
