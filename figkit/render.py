@@ -208,7 +208,14 @@ def _render(project: Project, row: SheetRow) -> dict:
         judged = [c for c in collisions if "greyscale" not in c]
         if judged and spec.style.strict:
             raise spec.err("colours too alike (strict house style): " + "; ".join(judged))
-        cautions += collisions
+        cautions += judged
+        # Greyscale is information, as in preflight ("not judged"): said with its remedy, and
+        # not at all where the figure already carries a non-colour cue for its groups.
+        cue = next((o for o in ("shapes", "dashes") if o in spec.chart.options), None)
+        if not (cue and spec.options.get(cue) == "yes"):
+            remedy = f"; add {cue}=yes under options for a cue that is not colour" if cue else ""
+            cautions += [f"{c}: not judged, but a greyscale print would merge these groups{remedy}"
+                         for c in collisions if "greyscale" in c]
         if spec.ranges != "common" and len(data.panels) > 1 and spec.chart.name in (
                 "count-bars", "histogram", "density", "shares", "scatter", "hexbins", "box", "violin"):
             cautions.append(f"ranges are '{spec.ranges}': panels have their own axis ranges, so "

@@ -88,3 +88,31 @@ def test_a_category_keeps_its_colour_across_figures(project):
     assert set(d) == {"S1", "S2", "S3", "S10"} and set(e) == {"S2", "S3", "S10"}
     assert d["S3"] == e["S3"] == "#CC79A7"
     assert d["S2"] == e["S2"] and d["S10"] == e["S10"]
+
+
+def test_greyscale_note_names_its_remedy_and_goes_once_a_shape_cue_is_on(tmp_path):
+    """Okabe & Ito (2008) orange #E69F00 and sky blue #56B4E9 have nearly the same CIE L*, so a
+    greyscale print merges them (the CIEDE2000 figures are checked against colour-science in
+    test_colour).  The caution says it is not judged and how to add a non-colour cue; with
+    shapes=yes there is a cue, and no caution."""
+    from figkit.render import load_project, render
+    root = tmp_path / "grey"
+    rng = np.random.default_rng(5)
+    n = 400
+    df = pd.DataFrame({"g": rng.choice(["a", "b"], n), "x": rng.normal(0, 1, n)})
+    df["y"] = df["x"] + rng.normal(0, 1, n)
+    (root / "data").mkdir(parents=True)
+    df.to_csv(root / "data" / "d.csv", index=False)
+    shutil.copytree(REPO / "figkit" / "styles", root / "styles")
+    (root / "config").mkdir()
+    (root / "config" / "config.yaml").write_text(
+        "datasets: {d: data/d.csv}\nformats: [png]\ncolours: {g: {a: '#E69F00', b: '#56B4E9'}}\n")
+    (root / "config" / "figures.tsv").write_text(
+        "id\tdataset\tchart\tx\ty\tcolour\toptions\n"
+        "plain\td\tscatter\tx\ty\tg\t\n"
+        "shaped\td\tscatter\tx\ty\tg\tshapes=yes\n")
+    project = load_project(root)
+    grey = [c for c in render(project, "plain")["cautions"] if "greyscale" in c]
+    assert len(grey) == 1 and "#E69F00" in grey[0] and "#56B4E9" in grey[0]
+    assert "not judged" in grey[0] and "shapes=yes" in grey[0]
+    assert not [c for c in render(project, "shaped")["cautions"] if "greyscale" in c]
