@@ -239,6 +239,10 @@ def prepare_scatter(ctx: Context) -> None:
                       coords=coords, own_densest=own)
     if mode == "bins":
         prepare_hexbins(ctx)
+        if forced != "bins":     # chosen, not asked for: the caption must say what is shown
+            ctx.cautions.append(f"drawn as hexagonal-bin counts, not points: up to {densest} points "
+                                "share a marker-sized cell; say so in the caption (points=translucent "
+                                "keeps points)")
 
 
 def draw_scatter(ax, panel: Panel, ctx: Context) -> dict:

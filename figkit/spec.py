@@ -152,8 +152,11 @@ def _parse_options(text: str | None, kind: ChartKind, err) -> dict:
     for part in filter(None, (p.strip() for p in text.split(";"))):
         key, _, raw = (s.strip() for s in part.partition("="))
         if key not in kind.options:
-            raise err(f"option '{key}' does not apply to chart '{kind.name}'", field="options",
-                      value=part, allowed=sorted(kind.options) or "no options for this chart")
+            known = any(key in k.options for k in CHARTS.values())
+            what = (f"option '{key}' does not apply to chart '{kind.name}'" if known else
+                    f"unknown option '{key}' for chart '{kind.name}'")
+            raise err(what, field="options", value=part,
+                      allowed=sorted(kind.options) or "no options for this chart")
         typ, _, allowed = kind.options[key]
         try:
             value = typ(raw)
