@@ -387,7 +387,9 @@ def compare_sidecars(old: dict, new: dict, *, rel_tol: float = 1e-9) -> list[Cha
     0), rows read and kept, ``strata_test`` (F with its relative change, p with a note when it
     crosses 0.05, degrees of freedom, excluded panels), inputs
     by path (sha256 changed, added, removed), colours used, cautions added or removed and
-    ``versions``.  Numbers count as equal when within ``rel_tol`` (sidecars store 10
+    ``versions``; for the counting charts each bar's share or count and each tile's count (the
+    largest changes first), and for histograms the bin edges.  Numbers count as equal when
+    within ``rel_tol`` (sidecars store 10
     significant digits, so the default only forgives last-digit noise).
     """
     for name, sc in (("old", old), ("new", new)):
@@ -462,6 +464,23 @@ def compare_sidecars(old: dict, new: dict, *, rel_tol: float = 1e-9) -> list[Cha
         if None not in covers and covers[0] != covers[1]:
             add(f"panel '{label}' slope CI", _ci(so), _ci(sn),
                 "now includes 0" if covers[1] else "now excludes 0")
+        for what, keys, value, unit in _BAR_RECORDS:
+            for cell, o, n in _keyed_changes(po.get(what), pn.get(what), keys, value, rel_tol):
+                if o is None and n is None:
+                    note = ""                     # the line counting the rest
+                elif o is None or n is None:
+                    note = "new bar" if o is None else "no longer drawn (no rows)"
+                elif unit == "pp":
+                    note = f"{(n - o) * 100:+.1f} percentage points"
+                else:
+                    note = _relative_note(o, n)
+                where = f"panel '{label}' " if label else ""
+                add(f"{where}{what[:-1]} {cell}", o, n, note)
+
+    oe, ne = old.get("bin_edges"), new.get("bin_edges")
+    if differs(oe, ne):
+        add("bin edges", _edges_text(oe), _edges_text(ne),
+            "histogram bars now cover other ranges of x")
 
     for key in ("rows_read", "rows_kept"):
         o, n = old.get(key), new.get(key)
@@ -506,6 +525,44 @@ def compare_sidecars(old: dict, new: dict, *, rel_tol: float = 1e-9) -> list[Cha
         if ov.get(key) != nv.get(key):
             add(f"version of {key}", ov.get(key), nv.get(key))
     return changes
+
+
+# Per-panel records of the counting charts: (sidecar key, fields naming a bar or tile, the
+# number compared, unit of the note: "pp" = percentage points of a share).
+_BAR_RECORDS = (("shares", ("x", "group"), "share", "pp"),
+                ("counts", ("x", "group"), "count", ""),
+                ("tiles", ("x", "y"), "count", ""))
+_MAX_CELL_CHANGES = 8    # per panel and record; the rest are counted in one line
+
+
+def _keyed_changes(old, new, keys, value, rel_tol) -> list[tuple[str, object, object]]:
+    """(cell name, old value, new value) for each bar or tile whose ``value`` changed, appeared
+    or went; the largest changes first, at most _MAX_CELL_CHANGES and a line for the rest."""
+    if not isinstance(old, list) or not isinstance(new, list):
+        return []
+
+    def index(rows):      # a zero bar is no bar: 0 and absent are the same drawing
+        return {" / ".join(str(r.get(k)) for k in keys if r.get(k) is not None): r.get(value)
+                for r in rows if isinstance(r, dict) and r.get(value) not in (0, 0.0)}
+    o, n = index(old), index(new)
+    out = [(cell, o.get(cell), n.get(cell)) for cell in list(o) + [c for c in n if c not in o]
+           if not _equal(o.get(cell), n.get(cell), rel_tol)]
+    out.sort(key=lambda t: -abs((t[2] or 0) - (t[1] or 0)) if _is_number(t[1] or 0) and
+             _is_number(t[2] or 0) else 0)
+    if len(out) > _MAX_CELL_CHANGES:
+        rest = len(out) - _MAX_CELL_CHANGES
+        out = out[:_MAX_CELL_CHANGES] + [(f"(and {rest} more)", None, None)]
+    return out
+
+
+def _edges_text(edges) -> str | None:
+    """'12 bins of 12.5 from 0 to 150' for evenly spaced edges, else the bin count and range."""
+    if not isinstance(edges, list) or len(edges) < 2 or not all(_is_number(e) for e in edges):
+        return None if edges is None else _show(edges)
+    widths = np.diff(np.asarray(edges, dtype=float))
+    even = np.allclose(widths, widths[0], rtol=1e-6)
+    size = f" of {widths[0]:.4g}" if even else f" ({widths.min():.4g} to {widths.max():.4g} wide)"
+    return f"{len(edges) - 1} bins{size} from {edges[0]:.4g} to {edges[-1]:.4g}"
 
 
 def _mm(size) -> str | None:

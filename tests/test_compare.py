@@ -390,3 +390,16 @@ def test_broken_sidecar_is_named(builds, tmp_path):
     (broken / "growth.json").write_text(json.dumps({"note": "not a sidecar"}), encoding="utf-8")
     report = C.compare_folders(old, broken)
     assert report.removed == ["growth"]
+
+
+def test_compare_sidecars_describes_changed_bin_edges():
+    """Histogram bars covering other ranges are a change a reader sees: old and new edges are
+    described as bin count, width and range (hand arithmetic on the edges below)."""
+    old = _sidecar()
+    old["bin_edges"] = [float(e) for e in np.linspace(0, 150, 13)]       # 12 bins of 12.5
+    new = copy.deepcopy(old)
+    new["bin_edges"] = [float(e) for e in np.linspace(0, 400, 11)]       # 10 bins of 40
+    (c,) = C.compare_sidecars(old, new)
+    assert c.what == "bin edges"
+    assert c.old == "12 bins of 12.5 from 0 to 150" and c.new == "10 bins of 40 from 0 to 400"
+    assert C.compare_sidecars(old, copy.deepcopy(old)) == []

@@ -173,3 +173,34 @@ def test_tile_counts_too_big_for_their_tiles_are_all_left_out(penguin_project):
     assert not any(t.get_visible() for t, _, _ in boxes)  # ... and none is shown
     # and they really did not fit: the widest number is wider than its tile
     assert max(bb.width - (x1 - x0) for _, bb, (x0, _, x1, _) in boxes) > 0
+
+
+def test_compare_names_the_shares_and_counts_that_changed(penguin_project, penguins, tmp_path):
+    """Drop the Dream island's Chinstraps from the data: compare must name the Dream bars that
+    moved, with their old and new values equal to pandas crosstabs of the two data sets
+    (Gorman et al. 2014 data), shares in percentage points, and leave the other islands alone."""
+    from figkit.compare import compare_sidecars
+    root = tmp_path / "p"
+    shutil.copytree(penguin_project, root, ignore=shutil.ignore_patterns("results"))
+    old_cars = {fid: render(load_project(root), fid) for fid in ("island-shares", "species-bars")}
+    fewer = penguins[~((penguins["island"] == "Dream") & (penguins["species"] == "Chinstrap"))]
+    fewer.to_csv(root / "data" / "penguins.csv", index=False)
+    new_cars = {fid: render(load_project(root), fid) for fid in ("island-shares", "species-bars")}
+
+    changes = {c.what: c for c in compare_sidecars(old_cars["island-shares"], new_cars["island-shares"])}
+    before = pd.crosstab(penguins["island"], penguins["species"], normalize="index")
+    after = pd.crosstab(fewer["island"], fewer["species"], normalize="index")
+    adelie = changes["share Dream / Adelie"]             # one panel: no panel name
+    assert adelie.old == pytest.approx(before.loc["Dream", "Adelie"], abs=1e-9)
+    assert adelie.new == pytest.approx(after.loc["Dream", "Adelie"], abs=1e-9) == pytest.approx(1.0)
+    pp = (after.loc["Dream", "Adelie"] - before.loc["Dream", "Adelie"]) * 100
+    assert adelie.note == f"{pp:+.1f} percentage points"
+    gone = changes["share Dream / Chinstrap"]
+    assert gone.old == pytest.approx(before.loc["Dream", "Chinstrap"], abs=1e-9)
+    assert gone.new is None and gone.note == "no longer drawn (no rows)"
+    assert not [w for w in changes if "share Biscoe" in w or "share Torgersen" in w]
+
+    changes = {c.what: c for c in compare_sidecars(old_cars["species-bars"], new_cars["species-bars"])}
+    c = changes["count Chinstrap / Dream"]
+    assert c.old == pd.crosstab(penguins["species"], penguins["island"]).loc["Chinstrap", "Dream"]  # 68
+    assert c.new in (None, 0)
