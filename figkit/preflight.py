@@ -16,6 +16,9 @@ Limits and where they come from (section and table numbers from memory):
 * SVG lengths: the user unit is the CSS px, 1 in = 96 px = 72 pt (CSS Values and Units Level 3,
   5.2); matplotlib writes ``width="...pt"`` with an equal viewBox, so there one user unit is 1 pt.
   Transforms scale strokes and text by sqrt(|det|) of their linear part (SVG 1.1, 7.4-7.6).
+* An image inside a PDF fills the unit square mapped by the current transformation matrix
+  (ISO 32000-1, 8.9.4), an SVG <image> its width x height in user units (SVG 1.1, 5.7): pixels
+  over that size on the page are the resolution a raster layer (rasterised points) prints at.
 * PNG resolution is stored as whole pixels per metre in pHYs (ISO/IEC 15948:2004, 11.3.5.3), so a
   600 dpi file reads back as 599.9988 dpi; a tolerance of one pixel per metre (0.0254 dpi) allows it.
 * Resolution by artwork kind, common practice in journal author guides: 300 dpi halftone, 500-600
@@ -135,15 +138,95 @@ def pdf_facts(path: Path) -> dict:
     return {"pages": pages, "fonts": list(fonts.values())}
 
 
-def _pdf_checks(path: Path, sizes_mm: dict, file: str) -> list[dict]:
+def _concat(m: list[float], ctm: list[float]) -> list[float]:
+    """M x CTM for PDF matrices [a b c d e f] = [[a b 0] [c d 0] [e f 1]] (ISO 32000-1, 8.3.3-8.3.4:
+    the ``cm`` operator and a form's /Matrix are applied before the current matrix)."""
+    a, b, c, d, e, f = m
+    A, B, C, D, E, F = ctm
+    return [a * A + b * C, a * B + b * D, c * A + d * C, c * B + d * D, e * A + f * C + E, e * B + f * D + F]
+
+
+def pdf_images(path: Path) -> list[dict]:
+    """Every image painted on the pages of a PDF, with its resolution on the page.
+
+    An image is painted into the unit square of user space mapped by the current transformation
+    matrix [a b c d e f] (ISO 32000-1, 8.9.4 and 8.3.4), so its sides are |(a, b)| and |(c, d)|
+    user units long; times /UserUnit they are points, and dpi = pixels * 72 / points along each
+    side.  The content stream is followed through q/Q, cm and Do, into form XObjects (with their
+    /Matrix) and inline images (BI/ID/EI, 8.9.7).
+    """
+    from pypdf import PdfReader
+    from pypdf.generic import ContentStream
+
+    reader = PdfReader(str(path))
+    found = []
+
+    def paint(name, w_px, h_px, ctm, unit):
+        side_x = math.hypot(ctm[0], ctm[1]) * unit
+        side_y = math.hypot(ctm[2], ctm[3]) * unit
+        if side_x > 0 and side_y > 0:
+            found.append({"name": name, "pixels": [int(w_px), int(h_px)],
+                          "dpi": min(w_px * 72.0 / side_x, h_px * 72.0 / side_y)})
+
+    def run(content, resources, ctm, unit, depth):
+        resources = resources.get_object() if resources is not None else {}
+        xobjects = resources.get("/XObject")
+        xobjects = xobjects.get_object() if xobjects is not None else {}
+        saved = []
+        for operands, op in content.operations:
+            if op == b"q":
+                saved.append(ctm)
+            elif op == b"Q":
+                ctm = saved.pop() if saved else ctm
+            elif op == b"cm" and len(operands) == 6:
+                ctm = _concat([float(v) for v in operands], ctm)
+            elif op == b"INLINE IMAGE":
+                settings = operands.get("settings", {}) if isinstance(operands, dict) else {}
+                w, h = settings.get("/W", settings.get("/Width")), settings.get("/H", settings.get("/Height"))
+                if w and h:
+                    paint("inline image", float(w), float(h), ctm, unit)
+            elif op == b"Do" and operands:
+                ref = xobjects.get(operands[0])
+                obj = ref.get_object() if ref is not None else None
+                if obj is None:
+                    continue
+                if obj.get("/Subtype") == "/Image":
+                    paint(str(operands[0]).lstrip("/"), float(obj["/Width"]), float(obj["/Height"]), ctm, unit)
+                elif obj.get("/Subtype") == "/Form" and depth < 16:
+                    m = [float(v) for v in obj.get("/Matrix", [1, 0, 0, 1, 0, 0])]
+                    run(ContentStream(obj, reader), obj.get("/Resources") or resources,
+                        _concat(m, ctm), unit, depth + 1)
+
+    for page in reader.pages:
+        contents = page.get_contents()
+        if contents is not None:
+            run(contents, page.get("/Resources"), [1.0, 0.0, 0.0, 1.0, 0.0, 0.0],
+                float(page.get("/UserUnit", 1.0)), 0)
+    return found
+
+
+def _embedded_raster_check(images: list[dict], min_dpi: float, file: str) -> dict:
+    """Rasterised layers inside a vector file (dense points, colour bar) meet the raster floor."""
+    if not images:
+        return _check("embedded raster resolution", True, None, min_dpi, "no raster layers", file=file)
+    low = min(images, key=lambda im: im["dpi"])
+    ok = low["dpi"] >= min_dpi - DPI_TOLERANCE
+    return _check("embedded raster resolution", ok, round(low["dpi"], 2), min_dpi,
+                  f"{len(images)} raster layer(s), the coarsest {low['dpi']:.0f} dpi "
+                  f"({low['name']}, {low['pixels'][0]} x {low['pixels'][1]} px)" +
+                  ("" if ok else f", below {min_dpi:g} dpi"), file=file)
+
+
+def _pdf_checks(path: Path, sizes_mm: dict, file: str, min_dpi: float) -> list[dict]:
     try:
         facts = pdf_facts(path)
+        images = pdf_images(path)
     except FigkitError:
         raise
     except Exception as exc:  # noqa: BLE001 - any parser failure means the file cannot be judged
         return [_check("readable", False, None, "a PDF pypdf can open",
                        f"cannot read the PDF: {exc}".splitlines()[0], file=file)]
-    out = []
+    out = [_embedded_raster_check(images, min_dpi, file)]
     loose = sorted({f["name"] for f in facts["fonts"] if not f["embedded"]})
     out.append(_check(
         "fonts embedded", not loose, loose, "FontFile, FontFile2 or FontFile3 for every font "
@@ -249,7 +332,7 @@ def svg_facts(path: Path) -> dict:
     root = ET.parse(path).getroot()
     scale = _pt_per_user_unit(root)
     width_px = _length(root.get("width", ""))
-    smallest, thinnest, n_text = None, None, 0
+    smallest, thinnest, n_text, images = None, None, 0, []
     state0 = {"stroke": "none", "stroke-width": 1.0, "stroke-opacity": 1.0, "font": 16.0,
               "det": 1.0, "hidden": False, "where": ""}
     stack = [(root, state0)]
@@ -298,6 +381,12 @@ def svg_facts(path: Path) -> dict:
             if st["stroke"] not in ("none", "transparent") and st["stroke-opacity"] > 0 and width > 0:
                 if thinnest is None or width < thinnest[0]:
                     thinnest = (width, f"{tag} in {st['where']}" if st["where"] else tag)
+        if tag == "image" and not st["hidden"]:
+            shown = _image_pixels(el)
+            w, h = _length(el.get("width", "")), _length(el.get("height", ""))
+            if shown and w and h:       # factor: points on the page per user unit here
+                images.append({"name": el.get("id") or "image", "pixels": list(shown),
+                               "dpi": min(shown[0] * 72.0 / (w * factor), shown[1] * 72.0 / (h * factor))})
         if tag in ("text", "tspan") and not st["hidden"]:
             own = (el.text or "") + "".join(child.tail or "" for child in el)
             if own.strip():
@@ -308,7 +397,24 @@ def svg_facts(path: Path) -> dict:
         for child in reversed(list(el)):
             stack.append((child, st))
     return {"width_pt": width_px * 0.75 if width_px is not None else None,
-            "smallest_text": smallest, "thinnest_stroke": thinnest, "n_text": n_text}
+            "smallest_text": smallest, "thinnest_stroke": thinnest, "n_text": n_text, "images": images}
+
+
+def _image_pixels(el) -> tuple[int, int] | None:
+    """Pixel size of an SVG <image> embedded as a data: URL (RFC 2397), read with Pillow;
+    None for linked files (not judged here)."""
+    import base64
+    import binascii
+    import io
+    href = el.get("{http://www.w3.org/1999/xlink}href") or el.get("href") or ""
+    if not href.startswith("data:") or ";base64," not in href:
+        return None
+    from PIL import Image
+    try:
+        with Image.open(io.BytesIO(base64.b64decode(href.split(",", 1)[1]))) as im:
+            return im.width, im.height
+    except (binascii.Error, OSError, ValueError):
+        return None
 
 
 def _number(text: str, default: float) -> float:
@@ -319,7 +425,7 @@ def _number(text: str, default: float) -> float:
 
 
 def _svg_checks(path: Path, sizes_mm: dict, min_text_pt: float, min_line_pt: float,
-                file: str) -> list[dict]:
+                file: str, min_dpi: float) -> list[dict]:
     try:
         facts = svg_facts(path)
     except ET.ParseError as exc:
@@ -345,6 +451,7 @@ def _svg_checks(path: Path, sizes_mm: dict, min_text_pt: float, min_line_pt: flo
                           + ("" if ok else f", below {min_line_pt:g} pt"), file=file))
     if facts["width_pt"] is not None:
         out.append(_width_check(facts["width_pt"] * MM_PER_PT, sizes_mm, file, what="drawing"))
+    out.append(_embedded_raster_check(facts["images"], min_dpi, file))
     return out
 
 
@@ -435,7 +542,8 @@ def preflight(files: dict, *, sizes_mm: dict, min_text_pt: float, min_line_pt: f
     Checks: PDF fonts embedded and no Type 3 (ISO 32000-1, 9.6.5, 9.8-9.9); page, drawing and
     raster width equal to a preset, |w - preset| <= 0.1 mm with w = width_pt * 25.4 / 72, or for a
     raster |px - preset_mm * dpi / 25.4| <= 1 px; SVG smallest text and thinnest stroke in pt;
-    raster dpi and RGB mode; size of every file <= ``max_bytes``; colour separability: the smallest
+    raster dpi and RGB mode, and the resolution on the page of every raster layer inside a PDF
+    or SVG (>= ``min_dpi``); size of every file <= ``max_bytes``; colour separability: the smallest
     CIEDE2000 difference (computed upstream, ``min_delta_e``) under each judged vision condition
     >= ``delta_e_threshold``, a warning unless ``strict``.
 
@@ -474,9 +582,9 @@ def preflight(files: dict, *, sizes_mm: dict, min_text_pt: float, min_line_pt: f
                                                         f", above {max_bytes / 1e6:g} MB"),
                              file=label))
         if kind == "pdf":
-            checks += _pdf_checks(path, sizes_mm, label)
+            checks += _pdf_checks(path, sizes_mm, label, min_dpi)
         elif kind == "svg":
-            checks += _svg_checks(path, sizes_mm, min_text_pt, min_line_pt, label)
+            checks += _svg_checks(path, sizes_mm, min_text_pt, min_line_pt, label, min_dpi)
         elif kind in ("png", "tiff"):
             checks += _raster_checks(path, sizes_mm, min_dpi, label)
     if min_delta_e is not None:

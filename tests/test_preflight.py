@@ -21,6 +21,7 @@ import sys
 from pathlib import Path
 
 import matplotlib
+import numpy as np
 import pytest
 from matplotlib.figure import Figure
 from PIL import Image
@@ -332,3 +333,49 @@ def test_preflight_finds_figures_older_than_their_data_or_row(project, tmp_path)
     every = dict(preflight_project(load_project(root)))
     orphan = check(every["sensitive-share"], "in the sheet")
     assert orphan["level"] == "warning" and "no longer in the sheet" in orphan["message"]
+
+
+@pytest.mark.parametrize("fmt", ["pdf", "svg"])
+def test_raster_layers_inside_vector_files_are_measured(tmp_path, fmt):
+    """An image's resolution on the page is its pixels over its painted size: ISO 32000-1, 8.9.4
+    (the image fills the unit square mapped by the CTM) for PDF, the <image> width and height in
+    user units (SVG 1.1, 5.7) for SVG.  Known cases: a 40 x 20 px image stretched over a 4 x 2 in
+    axes (interpolation 'none': embedded unresampled) is 10 dpi; a rasterised layer saved at
+    dpi=150 is 150 dpi."""
+    import matplotlib
+    matplotlib.use("Agg")
+    from matplotlib.figure import Figure
+    from figkit.preflight import preflight
+    fig = Figure(figsize=(4, 2))
+    ax = fig.add_axes((0, 0, 1, 1))
+    ax.set_axis_off()
+    ax.imshow(np.arange(800, dtype=float).reshape(20, 40), aspect="auto", interpolation="none")
+    coarse = tmp_path / f"coarse.{fmt}"
+    fig.savefig(coarse, dpi=72)
+    fig2 = Figure(figsize=(4, 2))
+    ax2 = fig2.add_axes((0.1, 0.1, 0.8, 0.8))
+    ax2.scatter(np.linspace(0, 1, 50), np.linspace(0, 1, 50), rasterized=True)
+    layer = tmp_path / f"layer.{fmt}"
+    fig2.savefig(layer, dpi=150)
+    sizes = {"w": 101.6}   # 4 in
+    for path, dpi in ((coarse, 10.0), (layer, 150.0)):
+        res = preflight({fmt: path}, sizes_mm=sizes, min_text_pt=1, min_line_pt=0.01, min_dpi=300)
+        c = check(res, "embedded raster resolution")
+        assert c["value"] == pytest.approx(dpi, rel=0.02), c
+        assert not c["passed"] and "below 300 dpi" in c["message"]
+        res = preflight({fmt: path}, sizes_mm=sizes, min_text_pt=1, min_line_pt=0.01, min_dpi=dpi * 0.9)
+        assert check(res, "embedded raster resolution")["passed"]
+
+
+def test_figkit_raster_layers_are_at_the_figure_dpi(project, tmp_path):
+    """figkit rasterises dense layers (here a box plot's points and the colour bar of a hexagon
+    figure) at the house style's 600 dpi, in the PDF and in the SVG."""
+    from figkit.render import load_project, render
+    root = tmp_path / "p"
+    shutil.copytree(project, root)
+    for fid in ("conductivity-catchments", "oxygen-season-grid"):
+        car = render(load_project(root), fid)
+        layers = [c for c in car["preflight"]["checks"] if c["name"] == "embedded raster resolution"]
+        assert {c["file"] for c in layers} == {f"{fid}.pdf", f"{fid}.svg"}
+        for c in layers:
+            assert c["passed"] and c["value"] == pytest.approx(600, abs=0.05), c
