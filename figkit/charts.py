@@ -148,6 +148,30 @@ def _cell_counts(x, y, xlim, ylim, cells) -> np.ndarray:
     return np.bincount(ix * ny + iy, minlength=nx * ny)
 
 
+CRAMPED_SHARE = 0.1      # a panel whose data span less of a common range is hard to read
+
+
+def cramped_panels(panels: list[Panel], spec, xlim, ylim) -> str | None:
+    """A note naming the panels whose data span less than CRAMPED_SHARE of the common range on
+    an axis.  The common range stays (panels compare honestly); the note says how to look
+    closer without changing what is compared."""
+    tight = {"x": [], "y": []}
+    for p in panels:
+        if p.n < 2 or p.tally is not None:
+            continue
+        for axis, fld, (lo, hi) in (("x", spec.x, xlim), ("y", spec.y, ylim)):
+            v = p.frame[fld].to_numpy(dtype=float)
+            if hi > lo and np.ptp(v) < CRAMPED_SHARE * (hi - lo):
+                tight[axis].append(p.label)
+    parts = [f"{', '.join(labels[:4])}{' ...' if len(labels) > 4 else ''} on {axis}"
+             for axis, labels in tight.items() if labels]
+    if not parts:
+        return None
+    return (f"panels whose data fill less than {CRAMPED_SHARE:.0%} of the common range: "
+            f"{'; '.join(parts)}; ranges=own-x or own-y (in the sheet) shows them closer, but then "
+            "panels no longer compare by position")
+
+
 def _discrete_gap(v: np.ndarray) -> float | None:
     """The smallest gap between distinct values when an axis holds few of them (heavy ties)."""
     # A part never holds more distinct values than the whole: 31 among the first rows settle
@@ -208,6 +232,10 @@ def prepare_scatter(ctx: Context) -> None:
     wx, wy = jitter.get("x", 0.0), jitter.get("y", 0.0)
     ctx.shared["xlim"] = padded_range(np.nanmin(x) - wx, np.nanmax(x) + wx) if x.size else (0, 1)
     ctx.shared["ylim"] = padded_range(np.nanmin(y) - wy, np.nanmax(y) + wy) if y.size else (0, 1)
+    if spec.ranges == "common" and len(panels) > 1:
+        note = cramped_panels(panels, spec, ctx.shared["xlim"], ctx.shared["ylim"])
+        if note:
+            ctx.cautions.append(note)
     marker_mm = pt_to_mm(float(spec.style.rc.get("lines.markersize", 2.5)))
     cells = (max(1, int(ctx.panel_mm[0] / marker_mm)), max(1, int(ctx.panel_mm[1] / marker_mm)))
     rng = np.random.default_rng(JITTER_SEED)

@@ -118,3 +118,18 @@ def test_every_jittered_point_is_inside_the_axes(tmp_path, strata):
                 continue
             inside += int(((xy[:, 0] >= x0) & (xy[:, 0] <= x1) & (xy[:, 1] >= y0) & (xy[:, 1] <= y1)).sum())
     assert inside == n
+
+
+def test_a_panel_cramped_by_the_common_range_is_named(tmp_path):
+    """One stratum spans 0-100 on x, the other 0-5: on the common range the second fills 5% of its
+    panel's width.  The range stays common (honest comparison) and a caution names that panel and
+    axis only.  The 10% line is common practice, no outside source."""
+    from figkit.render import render
+    rng = np.random.default_rng(4)
+    wide = pd.DataFrame({"g": "wide", "x": rng.uniform(0, 100, 300), "y": rng.normal(0, 1, 300)})
+    narrow = pd.DataFrame({"g": "narrow", "x": rng.uniform(0, 5, 300), "y": rng.normal(0, 1, 300)})
+    sheet = "id\tdataset\tchart\tx\ty\tstrata\tranges\nc\td\tscatter\tx\ty\tg\t\no\td\tscatter\tx\ty\tg\town-x\n"
+    project = _project(tmp_path, pd.concat([wide, narrow]), sheet)
+    notes = [c for c in render(project, "c")["cautions"] if "common range" in c]
+    assert len(notes) == 1 and "narrow on x" in notes[0] and "wide" not in notes[0]
+    assert not [c for c in render(project, "o")["cautions"] if "common range" in c]   # own ranges
