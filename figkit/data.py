@@ -62,8 +62,8 @@ def read_columns(path: Path) -> list[str]:
 def read_dataset(path: Path, columns: list[str]) -> pd.DataFrame:
     kind = _reader(path)
     try:
-        if kind == "parquet":
-            return pd.read_parquet(path, columns=columns)
+        if kind == "parquet":   # positions in the file, whatever index pandas stored with it
+            return pd.read_parquet(path, columns=columns).reset_index(drop=True)
         return pd.read_csv(path, usecols=columns, sep="\t" if kind == "tsv" else ",", low_memory=False)
     except ImportError:
         raise FigkitError("reading Parquet needs pyarrow: pip install pyarrow", value=str(path)) from None
@@ -141,8 +141,15 @@ def order_notes(fld: str, order: list, values) -> list[str]:
     if unlisted:
         more = f" and {len(unlisted) - 5} more" if len(unlisted) > 5 else ""
         out.append(f"orders: '{fld}' has values the list leaves out ({', '.join(map(repr, unlisted[:5]))}"
-                   f"{more}); they come after the listed ones, so their colours depend on the figure")
+                   f"{more}); they come after the listed ones, in natural order")
     return out
+
+
+def _ordered_fields(spec: FigureSpec) -> list[str]:
+    """Fields of the figure that have an ``orders:`` list (bands bring their own order)."""
+    banded = {b.name for b in spec.bandings}
+    return [f for f in dict.fromkeys(f for f in (spec.x, spec.y, spec.colour, *spec.strata) if f)
+            if spec.orders.get(f) is not None and f not in banded]
 
 
 @dataclass(eq=False)
@@ -178,13 +185,20 @@ def _check_kind(frame: pd.DataFrame, field: str, need: str, spec: FigureSpec, ro
     s = frame[field]
     if need == NUMERIC and not pd.api.types.is_numeric_dtype(s):
         bad = s[pd.to_numeric(s, errors="coerce").isna() & s.notna()]
+        if not len(bad):       # numbers kept as text (a Parquet string column)
+            raise spec.err(f"{role} field '{field}' must be numeric for chart '{spec.chart.name}'",
+                           field=role, value=f"{field} is stored as text ({s.dtype})",
+                           allowed="a numeric column: store these values as numbers")
         sample = ", ".join(repr(v) for v in pd.unique(bad)[:3])
-        # The frame keeps the file's row positions (0 = first row under the header), so the
-        # first bad value can be found in a spreadsheet: the header is its row 1.
-        first = (f", first at row {int(bad.index[0]) + 2} of the file (header = row 1)"
-                 if len(bad) and pd.api.types.is_integer_dtype(bad.index) else "")
+        # Frames keep each row's position in the file (0 = the first data row; see read_dataset
+        # and iter_chunks), so the first bad value can be found: a spreadsheet shows a CSV's
+        # header as row 1; a Parquet file has no header row.
+        pos = int(bad.index[0]) if pd.api.types.is_integer_dtype(bad.index) else None
+        where = "" if pos is None else (
+            f", first in data row {pos + 1}" if _reader(spec.data_path) == "parquet"
+            else f", first at row {pos + 2} of the file (header = row 1)")
         raise spec.err(f"{role} field '{field}' must be numeric for chart '{spec.chart.name}'",
-                       field=role, value=f"{field} holds text in {len(bad)} rows such as {sample}{first}",
+                       field=role, value=f"{field} holds text in {len(bad)} rows such as {sample}{where}",
                        allowed="a numeric column (decimal point, not comma; empty cells for missing)")
     if need == CATEGORY and pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
         distinct = s.nunique()
@@ -234,11 +248,9 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     n_read = len(frame)
     for banding in spec.bandings:
         frame[banding.name] = apply_banding(frame[banding.source], banding)
-    notes = []
-    banded = {b.name for b in spec.bandings}
-    for fld in dict.fromkeys(f for f in (spec.x, spec.y, spec.colour, *spec.strata) if f):
-        if spec.orders.get(fld) is not None and fld not in banded:   # before the filter: whole file
-            notes += order_notes(fld, spec.orders[fld], pd.unique(frame[fld].dropna()))
+    ordered = _ordered_fields(spec)
+    notes = [n for fld in ordered                      # before the filter: the whole file
+             for n in order_notes(fld, spec.orders[fld], pd.unique(frame[fld].dropna()))]
 
     # Colour levels are taken before the filter so that a category keeps its colour in every
     # figure of the dataset, whatever the figure keeps.  A numeric colour field with few distinct
@@ -350,8 +362,12 @@ def iter_chunks(path: Path, columns: list[str], rows: int = CHUNK_ROWS):
             raise FigkitError("reading Parquet needs pyarrow: pip install pyarrow", value=str(path)) from None
         # pre_buffer=False: Arrow would otherwise keep every row group's buffers until the pass
         # ends, and memory would grow with the file (measured in benchmarks/, case 7).
+        start = 0
         for batch in pq.ParquetFile(path, pre_buffer=False).iter_batches(batch_size=rows, columns=columns):
-            yield batch.to_pandas()
+            chunk = batch.to_pandas()
+            chunk.index = pd.RangeIndex(start, start + len(chunk))   # positions in the file
+            start += len(chunk)
+            yield chunk
         return
     try:
         yield from pd.read_csv(path, usecols=columns, sep="\t" if kind == "tsv" else ",",
@@ -361,12 +377,15 @@ def iter_chunks(path: Path, columns: list[str], rows: int = CHUNK_ROWS):
         raise FigkitError(f"dataset file cannot be read: {first}", value=str(path)) from None
 
 
-def _prepared_chunks(spec: FigureSpec, progress=None):
-    """Chunks with bands derived and the filter applied; yields (chunk, rows read)."""
+def _prepared_chunks(spec: FigureSpec, progress=None, raw=None):
+    """Chunks with bands derived and the filter applied; yields (chunk, rows read).  ``raw``, if
+    given, sees every chunk before the filter."""
     for chunk in iter_chunks(spec.data_path, spec.columns_needed()):
         read = len(chunk)
         for banding in spec.bandings:
             chunk[banding.name] = apply_banding(chunk[banding.source], banding)
+        if raw is not None:
+            raw(chunk)
         if spec.filter is not None:
             chunk = chunk.loc[spec.filter.evaluate(chunk)]
         if progress is not None:
@@ -408,8 +427,14 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     hi = {f: -np.inf for f in used}
     seen: dict = {f: set() for f in strata}
     sample = []
+    ordered = _ordered_fields(spec)
+    whole: dict = {f: set() for f in ordered}      # values before the filter, for orders notes
+
+    def collect(chunk):
+        for f in ordered:
+            whole[f].update(chunk[f].dropna().unique().tolist())
     step, done = _progress_printer(path)
-    for chunk, read in _prepared_chunks(spec, step):
+    for chunk, read in _prepared_chunks(spec, step, collect):
         n_read += read
         n_kept += len(chunk)
         if len(chunk):   # every chunk: a bad value may sit anywhere in a big file
@@ -493,6 +518,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     grid_levels = (order(strata[0]), order(strata[1])) if len(strata) == 2 else ()
     data = FigureData(panels, [input_record(path, rel_to or spec.root)], n_read, n_kept, {},
                       n_unassigned, grid_levels)
+    data.notes = [n for f in ordered for n in order_notes(f, spec.orders[f], sorted(whole[f], key=natural_key))]
     data.streamed = {"chunk_rows": CHUNK_ROWS, "hex_grid": None if grid is None else
                      [grid.xmin, grid.xmax, grid.ymin, grid.ymax, grid.nx],
                      "bin_edges": None if edges is None else edges.tolist(),

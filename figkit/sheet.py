@@ -157,18 +157,21 @@ def read_sheet(path: Path | str) -> list[SheetRow]:
         if not any(v.strip() for v in values) or values[0].lstrip().startswith("#"):
             continue
         if len(values) > len(header):
-            # Spreadsheets often export empty cells past the last column: harmless.  A filled
-            # one means a stray tab (or a missing header): the row is refused, and keeps its id
-            # so that its figure fails with this message instead of vanishing from the build.
-            extra = [v.strip() for v in values[len(header):] if v.strip()]
-            if extra:
-                rid = values[header.index("id")].strip() if "id" in header else ""
-                rows.append(SheetRow(number, {"id": rid} if rid else {}, FigkitError(
-                    f"{len(values)} cells but the header has {len(header)} columns (a tab inside "
-                    "a cell?)", row=number, figure=rid or None, value=extra[0],
-                    allowed=f"{len(header)} cells: {', '.join(header)}")))
-                continue
-            values = values[:len(header)]
+            # A stray tab shifts every later cell one column to the right, empty last cells or
+            # not, so the row is refused.  It keeps its id, so that its figure fails with this
+            # message instead of vanishing from the build.
+            filled = [i for i, v in enumerate(values) if v.strip()]
+            last = filled[-1] if filled else 0
+            where = header[last] if last < len(header) else "past the last column"
+            rid = values[header.index("id")].strip() if "id" in header else ""
+            rows.append(SheetRow(number, {"id": rid} if rid else {}, FigkitError(
+                f"{len(values)} cells but the header has {len(header)} columns (a stray tab "
+                f"shifts the cells after it; the last filled cell, {values[last].strip()!r}, "
+                f"is cell {last + 1}, under '{where}')", row=number, figure=rid or None,
+                allowed=f"{len(header)} cells: {', '.join(header)}")))
+            if rid:
+                seen.setdefault(rid, number)   # a later row with this id is still a repeat
+            continue
         cells = {h: v.strip() for h, v in zip(header, values) if v.strip()}
         row = check_row(number, cells)
         if row.error is None and row.id in seen:

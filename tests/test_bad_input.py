@@ -188,18 +188,27 @@ def test_too_many_cells_names_the_figure_and_the_stray_value(project):
     assert proc.returncode == 2
     err = proc.stderr.strip()
     assert len(err.splitlines()) == 1 and "Traceback" not in err
-    for w in ("row 3", "stray", "'summer only'", f"{len(HEADER) + 1} cells", "dataset, chart"):
+    for w in ("row 3", "stray", "'summer only'", f"{len(HEADER) + 1} cells", "past the last column",
+              "dataset, chart"):
         assert w in err, f"'{w}' missing from: {err}"
     assert run_render(project, "good").returncode == 0
 
 
-def test_empty_cells_past_the_header_are_ignored(project):
-    """Spreadsheet exports often end rows with empty cells beyond the last column: not an error."""
-    lines = ["\t".join(HEADER), "\t".join(GOOD.get(h, "") for h in HEADER) + "\t\t\t"]
-    (project / "config" / "figures.tsv").write_text("\n".join(lines) + "\n")
+def test_a_stray_tab_is_refused_even_when_the_last_cells_are_empty(project):
+    """A stray tab shifts the cells after it: 'shapes=yes' would land in the caption column and be
+    lost.  The row is refused (an empty last cell does not make the row right), and a later row
+    with the same id is still reported as a repeat."""
+    header = ["id", "dataset", "chart", "x", "y", "colour", "options", "caption"]
+    shifted = ["sh", "readings", "scatter", "water_temp_c", "dissolved_oxygen_mgl", "land_use", "",
+               "shapes=yes", ""]
+    again = ["sh", "readings", "histogram", "water_temp_c", "", "", "", ""]
+    path = project / "config" / "figures.tsv"
+    path.write_text("\n".join("\t".join(r) for r in (header, shifted, again)) + "\n")
     from figkit.sheet import read_sheet
-    rows = read_sheet(project / "config" / "figures.tsv")
-    assert len(rows) == 1 and rows[0].error is None and rows[0].id == "good"
+    rows = read_sheet(path)
+    assert rows[0].error is not None and "9 cells but the header has 8" in str(rows[0].error)
+    assert rows[0].id == "sh" and "'shapes=yes', is cell 8, under 'caption'" in str(rows[0].error)
+    assert rows[1].error is not None and "id already used in sheet row 2" in str(rows[1].error)
 
 
 @pytest.mark.parametrize("edit, words", [

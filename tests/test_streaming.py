@@ -122,3 +122,52 @@ def test_streamed_figure_equals_in_memory_figure(tmp_path, monkeypatch, chart):
     pb = np.asarray(Image.open(tmp_path / "out-streamed" / "figures" / "f.png").convert("RGB"), dtype=np.int16)
     assert pa.shape == pb.shape
     assert calculate_rms(pa, pb) < 1.0
+
+
+@pytest.mark.parametrize("fmt", ["csv", "parquet"])
+def test_streamed_and_in_memory_give_the_same_orders_notes(tmp_path, monkeypatch, fmt):
+    """An orders list with a typo ('nrth') and a value left out ('east') gives the same cautions on
+    both paths, judged on the whole file (the filter keeps no 'east' row here)."""
+    if fmt == "parquet":
+        pytest.importorskip("pyarrow")
+    path = _project(tmp_path, fmt)
+    cfg = validate_config({"datasets": {"pts": path.relative_to(tmp_path).as_posix()},
+                           "orders": {"g": ["nrth", "south"]}}, tmp_path)
+    spec = build_spec(check_row(2, {"id": "f", "dataset": "pts", "chart": "histogram", "x": "x",
+                                    "strata": "g", "filter": 'g != "east"'}), cfg)
+    monkeypatch.setattr(D, "CHUNK_ROWS", 7_000)
+    whole = D.load_figure_data(spec, stream_above_bytes=10 ** 12)
+    streamed = D.load_figure_data(spec, stream_above_bytes=0)
+    assert streamed.streamed is not None
+    assert streamed.notes == whole.notes and len(whole.notes) == 2
+    assert "'nrth' (did you mean 'north'?)" in whole.notes[0] and "'east'" in whole.notes[1]
+
+
+@pytest.mark.parametrize("fmt", ["csv", "parquet"])
+@pytest.mark.parametrize("stream", [False, True])
+def test_text_in_a_numeric_column_names_its_row_on_both_paths(tmp_path, monkeypatch, fmt, stream):
+    """The first bad value's row: CSV counts the header as row 1 (as a spreadsheet shows it), a
+    Parquet file has no header (data row); the same on the streamed path, where the bad value
+    sits in a later chunk (rows are positions in the file, not in the chunk)."""
+    if fmt == "parquet":
+        pytest.importorskip("pyarrow")
+    from figkit.errors import FigkitError
+    rng = np.random.default_rng(6)
+    n = 20_000
+    df = pd.DataFrame({"x": rng.normal(0, 1, n).round(3).astype(str), "y": rng.normal(0, 1, n)})
+    df.loc[[15_003, 15_100], "x"] = ["1,5", "2,5"]
+    (tmp_path / "data").mkdir()
+    name = f"data/t.{fmt}"
+    if fmt == "parquet":
+        df.set_axis(df.index + 1000).to_parquet(tmp_path / name, row_group_size=4000)  # stored index
+    else:
+        df.to_csv(tmp_path / name, index=False)
+    shutil.copytree(REPO / "figkit" / "styles", tmp_path / "styles")
+    spec = _spec(tmp_path, name, chart="histogram", x="x")
+    monkeypatch.setattr(D, "CHUNK_ROWS", 7_000)
+    with pytest.raises(FigkitError) as err:
+        D.load_figure_data(spec, stream_above_bytes=0 if stream else 10 ** 12)
+    text = str(err.value)
+    assert "'1,5'" in text
+    assert ("first at row 15005 of the file (header = row 1)" if fmt == "csv"
+            else "first in data row 15004") in text, text

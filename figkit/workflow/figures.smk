@@ -94,7 +94,7 @@ for _row in FK_ROWS:
 
 _FK_OLD = sorted(p.stem for p in (Path(FK_RESULTS) / "figures").glob("*.json") if p.stem not in FK_BY_ID)
 if _FK_OLD:   # files of removed rows stay in the folder; say so once, delete nothing
-    sys.stderr.write(f"figkit: results/figures holds figures no longer in the sheet: "
+    sys.stderr.write(f"figkit: {Path(FK_RESULTS) / 'figures'} holds figures no longer in the sheet: "
                      f"{', '.join(_FK_OLD)} (delete their files if they are not wanted)\n")
 
 
