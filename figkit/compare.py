@@ -465,22 +465,27 @@ def compare_sidecars(old: dict, new: dict, *, rel_tol: float = 1e-9) -> list[Cha
             add(f"panel '{label}' slope CI", _ci(so), _ci(sn),
                 "now includes 0" if covers[1] else "now excludes 0")
         for what, keys, value, unit in _BAR_RECORDS:
-            for cell, o, n in _keyed_changes(po.get(what), pn.get(what), keys, value, rel_tol):
-                if o is None and n is None:
-                    note = ""                     # the line counting the rest
-                elif o is None or n is None:
+            where = f"panel '{label}' " if label else ""
+            cells, rest = _keyed_changes(po.get(what), pn.get(what), keys, value, rel_tol)
+            for cell, o, n in cells:
+                if o is None or n is None:
                     note = "new bar" if o is None else "no longer drawn (no rows)"
                 elif unit == "pp":
                     note = f"{(n - o) * 100:+.1f} percentage points"
                 else:
                     note = _relative_note(o, n)
-                where = f"panel '{label}' " if label else ""
                 add(f"{where}{what[:-1]} {cell}", o, n, note)
+            if rest:
+                add(f"{where}{what}", None, f"{rest} more changed", "the largest changes are listed")
 
     oe, ne = old.get("bin_edges"), new.get("bin_edges")
     if differs(oe, ne):
-        add("bin edges", _edges_text(oe), _edges_text(ne),
-            "histogram bars now cover other ranges of x")
+        ot, nt = _edges_text(oe), _edges_text(ne)
+        note = "histogram bars now cover other ranges of x"
+        if ot == nt:        # same count, width and range at the digits shown: say by how much
+            shift = max(abs(a - b) for a, b in zip(oe, ne))
+            note += f"; edges moved by up to {shift:.3g}"
+        add("bin edges", ot, nt, note)
 
     for key in ("rows_read", "rows_kept"):
         o, n = old.get(key), new.get(key)
@@ -535,11 +540,11 @@ _BAR_RECORDS = (("shares", ("x", "group"), "share", "pp"),
 _MAX_CELL_CHANGES = 8    # per panel and record; the rest are counted in one line
 
 
-def _keyed_changes(old, new, keys, value, rel_tol) -> list[tuple[str, object, object]]:
-    """(cell name, old value, new value) for each bar or tile whose ``value`` changed, appeared
-    or went; the largest changes first, at most _MAX_CELL_CHANGES and a line for the rest."""
+def _keyed_changes(old, new, keys, value, rel_tol) -> tuple[list[tuple[str, object, object]], int]:
+    """([(cell name, old value, new value)], how many more) for the bars or tiles whose
+    ``value`` changed, appeared or went: the largest changes first, at most _MAX_CELL_CHANGES."""
     if not isinstance(old, list) or not isinstance(new, list):
-        return []
+        return [], 0
 
     def index(rows):      # a zero bar is no bar: 0 and absent are the same drawing
         return {" / ".join(str(r.get(k)) for k in keys if r.get(k) is not None): r.get(value)
@@ -549,10 +554,7 @@ def _keyed_changes(old, new, keys, value, rel_tol) -> list[tuple[str, object, ob
            if not _equal(o.get(cell), n.get(cell), rel_tol)]
     out.sort(key=lambda t: -abs((t[2] or 0) - (t[1] or 0)) if _is_number(t[1] or 0) and
              _is_number(t[2] or 0) else 0)
-    if len(out) > _MAX_CELL_CHANGES:
-        rest = len(out) - _MAX_CELL_CHANGES
-        out = out[:_MAX_CELL_CHANGES] + [(f"(and {rest} more)", None, None)]
-    return out
+    return out[:_MAX_CELL_CHANGES], max(0, len(out) - _MAX_CELL_CHANGES)
 
 
 def _edges_text(edges) -> str | None:
@@ -561,8 +563,8 @@ def _edges_text(edges) -> str | None:
         return None if edges is None else _show(edges)
     widths = np.diff(np.asarray(edges, dtype=float))
     even = np.allclose(widths, widths[0], rtol=1e-6)
-    size = f" of {widths[0]:.4g}" if even else f" ({widths.min():.4g} to {widths.max():.4g} wide)"
-    return f"{len(edges) - 1} bins{size} from {edges[0]:.4g} to {edges[-1]:.4g}"
+    size = f" of {widths[0]:.6g}" if even else f" ({widths.min():.6g} to {widths.max():.6g} wide)"
+    return f"{len(edges) - 1} bins{size} from {edges[0]:.6g} to {edges[-1]:.6g}"
 
 
 def _mm(size) -> str | None:

@@ -205,8 +205,15 @@ def pdf_images(path: Path) -> list[dict]:
     return found
 
 
-def _embedded_raster_check(images: list[dict], min_dpi: float, file: str) -> dict:
-    """Rasterised layers inside a vector file (dense points, colour bar) meet the raster floor."""
+def _embedded_raster_check(images: list[dict], min_dpi: float, file: str,
+                           unmeasured: list | None = None) -> dict:
+    """Rasterised layers inside a vector file (dense points, colour bar) meet the raster floor;
+    an image that cannot be measured (a linked file: it would not travel with the SVG either)
+    is a warning."""
+    if unmeasured:
+        return _check("embedded raster resolution", False, None, min_dpi,
+                      f"{len(unmeasured)} image(s) linked or without a size, not measured "
+                      f"({', '.join(unmeasured[:3])}); embed them", file=file, level="warning")
     if not images:
         return _check("embedded raster resolution", True, None, min_dpi, "no raster layers", file=file)
     low = min(images, key=lambda im: im["dpi"])
@@ -332,7 +339,7 @@ def svg_facts(path: Path) -> dict:
     root = ET.parse(path).getroot()
     scale = _pt_per_user_unit(root)
     width_px = _length(root.get("width", ""))
-    smallest, thinnest, n_text, images = None, None, 0, []
+    smallest, thinnest, n_text, images, unmeasured = None, None, 0, [], []
     state0 = {"stroke": "none", "stroke-width": 1.0, "stroke-opacity": 1.0, "font": 16.0,
               "det": 1.0, "hidden": False, "where": ""}
     stack = [(root, state0)]
@@ -387,6 +394,8 @@ def svg_facts(path: Path) -> dict:
             if shown and w and h:       # factor: points on the page per user unit here
                 images.append({"name": el.get("id") or "image", "pixels": list(shown),
                                "dpi": min(shown[0] * 72.0 / (w * factor), shown[1] * 72.0 / (h * factor))})
+            else:                       # a linked file, or no size given: cannot be judged
+                unmeasured.append(el.get("id") or "image")
         if tag in ("text", "tspan") and not st["hidden"]:
             own = (el.text or "") + "".join(child.tail or "" for child in el)
             if own.strip():
@@ -397,7 +406,8 @@ def svg_facts(path: Path) -> dict:
         for child in reversed(list(el)):
             stack.append((child, st))
     return {"width_pt": width_px * 0.75 if width_px is not None else None,
-            "smallest_text": smallest, "thinnest_stroke": thinnest, "n_text": n_text, "images": images}
+            "smallest_text": smallest, "thinnest_stroke": thinnest, "n_text": n_text, "images": images,
+            "images_unmeasured": unmeasured}
 
 
 def _image_pixels(el) -> tuple[int, int] | None:
@@ -451,7 +461,7 @@ def _svg_checks(path: Path, sizes_mm: dict, min_text_pt: float, min_line_pt: flo
                           + ("" if ok else f", below {min_line_pt:g} pt"), file=file))
     if facts["width_pt"] is not None:
         out.append(_width_check(facts["width_pt"] * MM_PER_PT, sizes_mm, file, what="drawing"))
-    out.append(_embedded_raster_check(facts["images"], min_dpi, file))
+    out.append(_embedded_raster_check(facts["images"], min_dpi, file, facts["images_unmeasured"]))
     return out
 
 
@@ -713,20 +723,33 @@ def preflight_project(project, ids=(), *, strict: bool = False) -> list[tuple[st
 
 
 def _up_to_date_check(sidecar: Path, project, fid: str) -> dict:
-    """The figure was built from the data files and the sheet row as they are now: their SHA-256
-    equal the sidecar's (a figure left behind by a failed or partial build is caught here)."""
+    """The figure was built from the data file, sheet row, style files and settings as they are
+    now: their SHA-256 (and the row's fingerprint of the settings it reads) equal the sidecar's,
+    so a figure left behind by a failed or partial build is caught here."""
     from .data import input_record
     from .provenance import row_sha256
     from .sheet import find_row
+    from .spec import fingerprint
     record = json.loads(sidecar.read_text(encoding="utf-8"))
-    path = project.spec(fid).data_path
+    spec = project.spec(fid)
+    row = find_row(project.rows, fid)
     changed = []
-    if not path.is_file():
-        changed.append(f"{path.name} (missing)")
-    elif [input_record(path, project.config.root)] != record.get("inputs"):
-        changed.append(input_record(path, project.config.root)["path"])
-    if row_sha256(find_row(project.rows, fid).cells) != record.get("row_sha256"):
+    if not spec.data_path.is_file():
+        changed.append(f"{spec.data_path.name} (missing)")
+    elif [input_record(spec.data_path, project.config.root)] != record.get("inputs"):
+        changed.append(input_record(spec.data_path, project.config.root)["path"])
+    if row_sha256(row.cells) != record.get("row_sha256"):
         changed.append("its sheet row")
+    style = record.get("style") or {}
+    if style.get("name") != spec.style.name:
+        changed.append(f"its house style ({style.get('name')} -> {spec.style.name})")
+    else:
+        changed += [f"style file {name}" for name, digest in spec.style.digest().items()
+                    if (style.get("files") or {}).get(name) != digest]
+    # The fingerprint also holds the row: settings are named only when the row is unchanged.
+    if ("its sheet row" not in changed and record.get("fingerprint") is not None
+            and record["fingerprint"] != fingerprint(row, project.config)):
+        changed.append("settings it reads in config.yaml (or figkit's version)")
     return _check("up to date", not changed, changed or None, "inputs and row as built",
                   ("changed since the figure was built: " + ", ".join(changed) + "; rebuild it")
                   if changed else "data files and sheet row unchanged since the build")

@@ -18,7 +18,7 @@ from .checks import enforce_minimums
 from .data import FigureData, load_figure_data
 from .errors import FigkitError
 from .sheet import Config, SheetRow, check_row, find_row, load_config, read_sheet
-from .spec import FigureSpec, build_spec
+from .spec import FigureSpec, build_spec, fingerprint
 
 log = logging.getLogger("figkit")
 
@@ -252,6 +252,9 @@ def _render(project: Project, row: SheetRow) -> dict:
             "cautions": cautions,
             "style": {"name": spec.style.name, "files": spec.style.digest()},
             "row_sha256": P.row_sha256(row.cells),
+            # The row with every setting it reads (labels, orders, colours, bands, sizes) and
+            # figkit's version, as the workflow's rerun trigger sees them: preflight compares it.
+            "fingerprint": fingerprint(row, project.config),
             "rebuild": rebuild_command(spec, results_rel),
             "versions": {**P.versions(), "font": P.font_file(spec.style.rc.get("font.family", ["DejaVu Sans"])[0]
                                                             if isinstance(spec.style.rc.get("font.family"), list)

@@ -403,3 +403,25 @@ def test_compare_sidecars_describes_changed_bin_edges():
     assert c.what == "bin edges"
     assert c.old == "12 bins of 12.5 from 0 to 150" and c.new == "10 bins of 40 from 0 to 400"
     assert C.compare_sidecars(old, copy.deepcopy(old)) == []
+
+
+def test_compare_sidecars_bin_edges_moved_a_little_and_many_tiles():
+    """Edges moved by 0.0002 read alike at six digits: the change still says by how much; more than
+    eight changed tiles give the eight largest and one line counting the rest (hand arithmetic)."""
+    old = _sidecar()
+    old["bin_edges"] = [1000.1 + 12.5 * i for i in range(13)]
+    new = copy.deepcopy(old)
+    new["bin_edges"] = [1000.1002 + 12.5 * i for i in range(13)]
+    (c,) = C.compare_sidecars(old, new)
+    assert c.what == "bin edges" and c.old == c.new and "moved by up to 0.0002" in c.note
+    old = _sidecar()
+    old["panels"][0]["tiles"] = [{"x": f"c{i}", "y": "r", "count": 10} for i in range(12)]
+    new = copy.deepcopy(old)
+    for i, t in enumerate(new["panels"][0]["tiles"]):
+        t["count"] = 10 + i + 1                     # every tile changes; c11 the most (+12)
+    label = old["panels"][0]["label"]
+    changes = C.compare_sidecars(old, new)
+    tiles = [c for c in changes if c.what.startswith(f"panel '{label}' tile ")]
+    assert [c.what.split()[-3] for c in tiles] == [f"c{i}" for i in range(11, 3, -1)]   # "c11 / r"
+    (more,) = [c for c in changes if c.what == f"panel '{label}' tiles"]
+    assert more.new == "4 more changed"

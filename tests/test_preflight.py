@@ -367,6 +367,20 @@ def test_raster_layers_inside_vector_files_are_measured(tmp_path, fmt):
         assert check(res, "embedded raster resolution")["passed"]
 
 
+def test_a_linked_svg_image_is_a_warning_not_a_pass(tmp_path):
+    """An <image> that links a file instead of embedding it cannot be measured (and would not
+    travel with the SVG): a warning, never 'no raster layers'."""
+    from figkit.preflight import preflight
+    svg = tmp_path / "linked.svg"
+    svg.write_text('<svg xmlns="http://www.w3.org/2000/svg" xmlns:xlink="http://www.w3.org/1999/xlink" '
+                   'width="288pt" height="144pt" viewBox="0 0 288 144">'
+                   '<image id="photo" x="0" y="0" width="100" height="50" xlink:href="photo.png"/>'
+                   '<text font-size="8">a</text></svg>')
+    res = preflight({"svg": svg}, sizes_mm={"w": 101.6}, min_text_pt=1, min_line_pt=0.01, min_dpi=300)
+    c = check(res, "embedded raster resolution")
+    assert not c["passed"] and c["level"] == "warning" and "photo" in c["message"]
+
+
 def test_figkit_raster_layers_are_at_the_figure_dpi(project, tmp_path):
     """figkit rasterises dense layers (here a box plot's points and the colour bar of a hexagon
     figure) at the house style's 600 dpi, in the PDF and in the SVG."""
@@ -379,3 +393,30 @@ def test_figkit_raster_layers_are_at_the_figure_dpi(project, tmp_path):
         assert {c["file"] for c in layers} == {f"{fid}.pdf", f"{fid}.svg"}
         for c in layers:
             assert c["passed"] and c["value"] == pytest.approx(600, abs=0.05), c
+
+
+def test_up_to_date_sees_style_files_and_settings(project, tmp_path):
+    """A changed house-style file or a setting the figure reads (a field's label in config.yaml)
+    makes the figure out of date, as the workflow's rerun triggers do; a setting it does not
+    read does not."""
+    from figkit.preflight import preflight_project
+    from figkit.render import load_project
+    root = tmp_path / "p"
+    shutil.copytree(project, root)
+    fid = "temperature-histogram"
+    def up(r):
+        return check(dict(preflight_project(load_project(r), (fid,)))[fid], "up to date")
+    assert up(root)["passed"]
+    cfg = root / "config" / "config.yaml"
+    text = cfg.read_text()
+    cfg.write_text(text.replace("turbidity_ntu: {label: Turbidity, unit: NTU}",
+                                "turbidity_ntu: {label: Turbidity (nephelometric), unit: NTU}"))
+    assert up(root)["passed"]                     # a label this figure does not show
+    cfg.write_text(text.replace("water_temp_c: {label: Water temperature, unit: °C}",
+                                "water_temp_c: {label: Stream temperature, unit: °C}"))
+    c = up(root)
+    assert not c["passed"] and c["value"] == ["settings it reads in config.yaml (or figkit's version)"]
+    cfg.write_text(text)
+    sheet = root / "styles" / "house.mplstyle"
+    sheet.write_text(sheet.read_text() + "\n# edited\n")
+    assert up(root)["value"] == ["style file house.mplstyle"]
