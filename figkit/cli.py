@@ -2,7 +2,7 @@
 
     figkit render --id ID      build one figure (what each Snakemake job runs)
     figkit init DIR            start a manuscript folder that builds with the installed figkit
-    figkit lint                check the sheet, settings and styles without rendering
+    figkit lint                check the sheet, settings, styles and each row against its data, without drawing
     figkit palettes --out DIR  swatch sheets of every built-in palette under simulated vision
     figkit info FILE           what a figure file says about where it came from
     figkit preflight [ID ...]  re-check written figures against the house style's artwork rules
@@ -203,7 +203,7 @@ def build_parser() -> argparse.ArgumentParser:
     i.add_argument("--scale", type=float, default=0.05,
                    help="size of the starter data relative to the demo (default 0.05)")
     i.set_defaults(func=_cmd_init)
-    lt = sub.add_parser("lint", help="check sheet, settings and styles without rendering")
+    lt = sub.add_parser("lint", help="check sheet, settings, styles and each row against its data, without drawing")
     lt.add_argument("--project", default=".")
     lt.set_defaults(func=_cmd_lint)
     pa = sub.add_parser("palettes", help="write swatch sheets of the built-in palettes")
