@@ -260,9 +260,13 @@ def prepare_scatter(ctx: Context) -> None:
     elif jitter and mode != "bins":
         mode = "jitter"
     if mode == "bins" and spec.colour:
-        mode, alpha = "translucent", MIN_ALPHA   # bins cannot show colour groups
-        ctx.cautions.append("points too dense for colour groups: drawn at the lowest opacity; "
-                            "consider splitting by the colour field instead")
+        mode, alpha = "translucent", MIN_ALPHA   # bins cannot show a colour per point
+        grouped = ctx.colours is not None
+        what = "colour groups" if grouped else f"a colour scale of '{spec.colour}'"
+        instead = ("splitting by the colour field" if grouped
+                   else "bands of the colour field as panels")
+        ctx.cautions.append(f"points too dense for {what}: drawn at the lowest opacity, where "
+                            f"overlapping points mix their colours; consider {instead} instead")
     ctx.shared.update(mode=mode, alpha=alpha, cells=cells, densest=densest, jitter=jitter,
                       coords=coords, own_densest=own)
     if mode == "bins":

@@ -133,3 +133,22 @@ def test_a_panel_cramped_by_the_common_range_is_named(tmp_path):
     notes = [c for c in render(project, "c")["cautions"] if "common range" in c]
     assert len(notes) == 1 and "narrow on x" in notes[0] and "wide" not in notes[0]
     assert not [c for c in render(project, "o")["cautions"] if "common range" in c]   # own ranges
+
+
+def test_too_dense_for_colour_says_which_colour(tmp_path):
+    """Hexagon counts cannot show a colour per point, so a coloured scatter that the density
+    would bin stays points at the lowest opacity, with a caution that names what is lost: groups
+    for a categorical colour, the scale for a numeric one."""
+    from figkit.render import render
+    rng = np.random.default_rng(8)
+    n = 200_000
+    df = pd.DataFrame({"x": rng.normal(0, 0.01, n), "y": rng.normal(0, 0.01, n),
+                       "g": rng.choice(["a", "b"], n), "c": rng.uniform(0, 30, n)})
+    df.loc[:1, ["x", "y"]] = [[-1, -1], [1, 1]]
+    sheet = ("id\tdataset\tchart\tx\ty\tcolour\tsize\n"
+             "grp\td\tscatter\tx\ty\tg\tsingle\nnum\td\tscatter\tx\ty\tc\tsingle\n")
+    project = _project(tmp_path, df, sheet)
+    for fid, words in (("grp", "too dense for colour groups"), ("num", "too dense for a colour scale of 'c'")):
+        car = render(project, fid)
+        assert car["panels"][0]["drawing"] == "translucent" and car["panels"][0]["alpha"] == MIN_ALPHA
+        assert any(words in c for c in car["cautions"]), car["cautions"]
