@@ -145,6 +145,38 @@ def order_notes(fld: str, order: list, values) -> list[str]:
     return out
 
 
+def filter_notes(spec: FigureSpec, values_of) -> list[str]:
+    """Cautions for text the filter compares with a column that the column never holds (in the
+    whole file): ``arm in ["placebo", "hgh dose"]`` would silently keep only placebo rows.
+    ``values_of(column)`` gives the column's distinct values, or None for a numeric column."""
+    import difflib
+    if spec.filter is None:
+        return []
+    out = []
+    for col, text in dict.fromkeys(spec.filter.text_values()):
+        values = values_of(col)
+        if values is None:
+            continue
+        have = sorted({str(v) for v in values}, key=natural_key)
+        if text in have:
+            continue
+        close = difflib.get_close_matches(text, have, n=1, cutoff=0.6)
+        shown = ", ".join(have[:8]) + (f" ... ({len(have) - 8} more)" if len(have) > 8 else "")
+        out.append(f"filter: {text!r} is not a value of '{col}' in the data, so it matches no row"
+                   + (f" (did you mean {close[0]!r}?)" if close else "") + f"; '{col}' holds: {shown}")
+    return out
+
+
+def _text_values(frame: pd.DataFrame, col: str):
+    """Distinct values of a text or categorical column; None for numbers, dates and booleans."""
+    if col not in frame:
+        return None
+    s = frame[col]
+    if isinstance(s.dtype, pd.CategoricalDtype) or pd.api.types.is_string_dtype(s) or s.dtype == object:
+        return pd.unique(s.dropna())
+    return None
+
+
 def _ordered_fields(spec: FigureSpec) -> list[str]:
     """Fields of the figure that have an ``orders:`` list (bands bring their own order)."""
     banded = {b.name for b in spec.bandings}
@@ -251,6 +283,7 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     ordered = _ordered_fields(spec)
     notes = [n for fld in ordered                      # before the filter: the whole file
              for n in order_notes(fld, spec.orders[fld], pd.unique(frame[fld].dropna()))]
+    notes += filter_notes(spec, lambda col: _text_values(frame, col))
 
     # Colour levels are taken before the filter so that a category keeps its colour in every
     # figure of the dataset, whatever the figure keeps.  A numeric colour field with few distinct
@@ -272,7 +305,8 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     n_kept = len(frame)
     if n_kept == 0:
         raise spec.err("no rows left after the filter", field="filter", value=spec.filter.text,
-                       allowed="a filter that keeps some rows")
+                       allowed="a filter that keeps some rows" + "".join(
+                           "; " + n.split("; ", 1)[1] for n in notes if n.startswith("filter:")))
 
     for role, need in (("x", spec.chart.x), ("y", spec.chart.y)):
         fld = getattr(spec, role)
@@ -428,11 +462,16 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     seen: dict = {f: set() for f in strata}
     sample = []
     ordered = _ordered_fields(spec)
-    whole: dict = {f: set() for f in ordered}      # values before the filter, for orders notes
+    compared = {c for c, _ in spec.filter.text_values()} if spec.filter is not None else set()
+    whole: dict = {f: set() for f in [*ordered, *compared]}   # values before the filter, for notes
+    numeric: set = set()
 
     def collect(chunk):
-        for f in ordered:
-            whole[f].update(chunk[f].dropna().unique().tolist())
+        for f in whole:
+            vals = _text_values(chunk, f) if f in compared else None
+            if f in compared and vals is None:
+                numeric.add(f)
+            whole[f].update((vals if vals is not None else chunk[f].dropna().unique()).tolist())
     step, done = _progress_printer(path)
     for chunk, read in _prepared_chunks(spec, step, collect):
         n_read += read
@@ -519,6 +558,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     data = FigureData(panels, [input_record(path, rel_to or spec.root)], n_read, n_kept, {},
                       n_unassigned, grid_levels)
     data.notes = [n for f in ordered for n in order_notes(f, spec.orders[f], sorted(whole[f], key=natural_key))]
+    data.notes += filter_notes(spec, lambda col: None if col in numeric else whole.get(col))
     data.streamed = {"chunk_rows": CHUNK_ROWS, "hex_grid": None if grid is None else
                      [grid.xmin, grid.xmax, grid.ymin, grid.ymax, grid.nx],
                      "bin_edges": None if edges is None else edges.tolist(),

@@ -663,6 +663,28 @@ class Expr:
         """Names of the data columns the filter reads."""
         return frozenset(c.name for c in self._column_nodes)
 
+    def text_values(self) -> list[tuple[str, str]]:
+        """(column, text) for every text literal compared for equality with a column (``==``,
+        ``!=``, ``in``, ``not in``), in reading order: the values a typo would make match
+        nothing, silently."""
+        out = []
+
+        def walk(node):
+            if isinstance(node, _Compare) and node.op in ("==", "!="):
+                for col, lit in ((node.left, node.right), (node.right, node.left)):
+                    if isinstance(col, _Column) and isinstance(lit, _Literal) and isinstance(lit.value, str):
+                        out.append((col.name, lit.value))
+            elif isinstance(node, _Member) and isinstance(node.operand, _Column):
+                out.extend((node.operand.name, it.value) for it in node.items
+                           if isinstance(it, _Literal) and isinstance(it.value, str))
+            elif isinstance(node, (_Not, _IsMissing)):
+                walk(node.operand)
+            elif isinstance(node, _BoolOp):
+                for it in node.items:
+                    walk(it)
+        walk(self._root)
+        return out
+
     def evaluate(self, df: pd.DataFrame) -> np.ndarray:
         """Boolean mask with one entry per row of ``df`` (vectorised with numpy).
 

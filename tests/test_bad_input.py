@@ -294,3 +294,22 @@ def test_a_misspelt_orders_value_is_a_caution_with_the_likely_value(project, tmp
     # the correct list gives no such caution
     cfg.write_text(cfg.read_text().replace("pastre", "pasture"))
     assert not [c for c in render(load_project(root), "good")["cautions"] if c.startswith("orders:")]
+
+
+def test_a_filter_value_the_data_never_hold_is_named(project, tmp_path):
+    """`land_use in ["forest", "pastre"]` silently keeps forest alone: a caution names the value,
+    the closest spelling (difflib) and what the column holds; a filter that keeps nothing
+    because of such a value says what the column holds in its one-line error."""
+    from figkit.render import load_project, render
+    root = tmp_path / "p"
+    shutil.copytree(project, root, symlinks=True)
+    write_sheet(root, dict(GOOD, filter='land_use in ["forest", "pastre"]'),
+                dict(GOOD, id="none", filter='land_use == "Forest"'))
+    car = render(load_project(root), "good")
+    notes = [c for c in car["cautions"] if c.startswith("filter:")]
+    assert len(notes) == 1 and "'pastre'" in notes[0] and "did you mean 'pasture'" in notes[0]
+    assert "arable, forest, pasture, urban" in notes[0]
+    proc = run_render(root, "none")
+    err = proc.stderr.strip()
+    assert proc.returncode == 2 and len(err.splitlines()) == 1
+    assert "no rows left" in err and "'land_use' holds: arable, forest, pasture, urban" in err

@@ -171,3 +171,16 @@ def test_text_in_a_numeric_column_names_its_row_on_both_paths(tmp_path, monkeypa
     assert "'1,5'" in text
     assert ("first at row 15005 of the file (header = row 1)" if fmt == "csv"
             else "first in data row 15004") in text, text
+
+
+def test_streamed_and_in_memory_name_the_same_filter_typo(tmp_path, monkeypatch):
+    """A filter value no row holds ('sout') is named on both paths alike."""
+    path = _project(tmp_path, "csv")
+    spec = _spec(tmp_path, path.relative_to(tmp_path).as_posix(), chart="histogram", x="x",
+                 strata="h", filter='g in ["north", "sout"]')
+    monkeypatch.setattr(D, "CHUNK_ROWS", 7_000)
+    whole = D.load_figure_data(spec, stream_above_bytes=10 ** 12)
+    streamed = D.load_figure_data(spec, stream_above_bytes=0)
+    assert streamed.streamed is not None
+    assert whole.notes == streamed.notes and len(whole.notes) == 1
+    assert "'sout'" in whole.notes[0] and "did you mean 'south'" in whole.notes[0]
