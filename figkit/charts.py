@@ -420,7 +420,8 @@ def draw_box(ax, panel: Panel, ctx: Context) -> dict:
                whiskerprops=dict(color=colour, linewidth=0.6),
                capprops=dict(color=colour, linewidth=0.6),
                flierprops=dict(marker="o", markersize=1.6, markerfacecolor=colour, markeredgewidth=0,
-                               alpha=0.7, rasterized=True))
+                               alpha=0.7, rasterized=sum(len(s["fliers"]) for s in bxp) > 2000))
+    # Outliers stay vector (editable, sharp) unless there are so many that the file would swell.
     _category_axis(ax, levels)
     return {"groups": groups}
 

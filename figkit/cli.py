@@ -30,7 +30,8 @@ def _cmd_render(args) -> int:
     project = load_project(args.project)
     rec = render(project, args.id)
     out = project.config.results / "figures"
-    print(f"figkit: {rec['id']}: {len(rec['panels'])} panels, "
+    n = len(rec["panels"])
+    print(f"figkit: {rec['id']}: {n} panel{'' if n == 1 else 's'}, "
           f"{rec['size_mm'][0]:.0f} x {rec['size_mm'][1]:.0f} mm -> {out}/{rec['id']}.*")
     return 0
 
@@ -54,7 +55,7 @@ def _cmd_lint(args) -> int:
                 _lint_palette(spec)
         except FigkitError as exc:
             problems += 1
-            print(f"figkit: {exc.at(row=row.number, figure=row.id)}", file=sys.stderr)
+            print(f"figkit: error: {exc.at(row=row.number, figure=row.id)}", file=sys.stderr)
     n = len(project.rows)
     print(f"figkit: lint: {n} figure rows, {problems} with problems")
     return 2 if problems else 0
@@ -143,6 +144,12 @@ sheet: config/figures.tsv
 results: results
 style: house
 formats: [pdf, png, svg]
+# Your journal's column widths in mm; the sheet's 'size' column names one.  These are the house
+# style's presets: change the numbers, or add a name of your own.
+sizes:
+  single: 84
+  one-and-half: 120
+  full: 176
 datasets:
   readings: data/readings.csv
   surveys: data/surveys.csv

@@ -202,7 +202,7 @@ def _render(project: Project, row: SheetRow) -> dict:
 
         from .colour import check_separability, separability
         sep = separability(drawn["colours"])
-        cautions = list(data.notes) + list(drawn["cautions"])
+        cautions = list(data.notes) + _dropped_notes(spec, data) + list(drawn["cautions"])
         # Greyscale is reported, not judged: most qualitative palettes fail it by design.
         collisions = check_separability(drawn["colours"], spec.style.min_colour_difference)
         judged = [c for c in collisions if "greyscale" not in c]
@@ -291,6 +291,22 @@ def _render(project: Project, row: SheetRow) -> dict:
             temps[-2].write_text(_stats_csv(stat_lines), encoding="utf-8")
             temps[-1].write_text(P.dumps(record), encoding="utf-8")
     return P.clean(record)
+
+
+def _dropped_notes(spec: FigureSpec, data: FigureData) -> list[str]:
+    """Rows the figure leaves out, said in the log and the sidecar's cautions, not only counted
+    per panel: a reader should know what share of the data is not shown."""
+    out = []
+    kept = data.n_kept
+    dropped = sum(p.n_dropped for p in data.panels)
+    fields = [f for f in dict.fromkeys((spec.x, spec.y, spec.colour, spec.weight)) if f]
+    if dropped and kept:
+        out.append(f"{dropped} of {kept} rows ({100 * dropped / kept:.1f}%) are not drawn: a value "
+                   f"is missing in {', '.join(repr(f) for f in fields)} (n_dropped per panel)")
+    if data.n_unassigned and kept:
+        out.append(f"{data.n_unassigned} of {kept} rows ({100 * data.n_unassigned / kept:.1f}%) have no "
+                   f"value of {' / '.join(repr(f) for f in spec.strata)} and belong to no panel")
+    return out
 
 
 def _save(fig, path: Path, fmt: str, spec: FigureSpec, meta: str) -> None:

@@ -204,3 +204,17 @@ def test_compare_names_the_shares_and_counts_that_changed(penguin_project, pengu
     c = changes["count Chinstrap / Dream"]
     assert c.old == pd.crosstab(penguins["species"], penguins["island"]).loc["Chinstrap", "Dream"]  # 68
     assert c.new in (None, 0)
+
+
+def test_rows_left_out_are_said_not_only_counted(penguin_project, penguins):
+    """Palmer penguins (Gorman et al. 2014): 2 birds lack a body mass and 11 a recorded sex.  A
+    figure weighted by mass says 2 of 344 rows are not drawn; one split by sex says 11 rows
+    belong to no panel."""
+    mass = render(load_project(penguin_project), "mass-bars")
+    missing = int(penguins["body_mass_g"].isna().sum())
+    assert missing == 2
+    assert any(c.startswith(f"{missing} of 344 rows (0.6%) are not drawn") for c in mass["cautions"]), mass["cautions"]
+    tiles = render(load_project(penguin_project), "species-tiles")
+    no_sex = int(penguins["sex"].isna().sum())
+    assert no_sex == 11
+    assert any(c.startswith(f"{no_sex} of 344 rows (3.2%) have no value of 'sex'") for c in tiles["cautions"])

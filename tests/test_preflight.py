@@ -382,12 +382,12 @@ def test_a_linked_svg_image_is_a_warning_not_a_pass(tmp_path):
 
 
 def test_figkit_raster_layers_are_at_the_figure_dpi(project, tmp_path):
-    """figkit rasterises dense layers (here a box plot's points and the colour bar of a hexagon
-    figure) at the house style's 600 dpi, in the PDF and in the SVG."""
+    """figkit rasterises dense layers (here the colour bars of a hexagon and a tile figure) at the
+    house style's 600 dpi, in the PDF and in the SVG."""
     from figkit.render import load_project, render
     root = tmp_path / "p"
     shutil.copytree(project, root)
-    for fid in ("conductivity-catchments", "oxygen-season-grid"):
+    for fid in ("taxa-tiles", "oxygen-season-grid"):
         car = render(load_project(root), fid)
         layers = [c for c in car["preflight"]["checks"] if c["name"] == "embedded raster resolution"]
         assert {c["file"] for c in layers} == {f"{fid}.pdf", f"{fid}.svg"}
@@ -477,12 +477,24 @@ def test_pdf_image_scan_equals_a_walk_over_pypdfs_parse(project, tmp_path):
     fast = sorted(round(i["dpi"], 6) for i in pdf_images(path))
     assert fast == sorted(round(d, 6) for d in _reference_pdf_images(path))
     assert len(fast) == 2
-    # and on figkit's own figures with raster layers (a box plot's points, a colour bar)
+    # and on figkit's own figures with raster layers (colour bars)
     from figkit.render import load_project, render
     root = tmp_path / "p"
     shutil.copytree(project, root)
-    for fid in ("conductivity-catchments", "oxygen-season-grid"):
+    for fid in ("taxa-tiles", "oxygen-season-grid"):
         render(load_project(root), fid)
         f = root / "results" / "figures" / f"{fid}.pdf"
         got = sorted(round(i["dpi"], 6) for i in pdf_images(f))
         assert got and got == sorted(round(d, 6) for d in _reference_pdf_images(f)), fid
+
+
+def test_a_few_box_plot_outliers_stay_vector(project, tmp_path):
+    """A box plot's outliers are a few hundred marks at most here: they stay vector (editable and
+    sharp for the art editor), so its PDF and SVG hold no raster layer."""
+    from figkit.render import load_project, render
+    root = tmp_path / "p"
+    shutil.copytree(project, root)
+    car = render(load_project(root), "conductivity-catchments")
+    assert sum(g["outliers"] for p in car["panels"] for g in p["groups"]) > 0
+    layers = [c for c in car["preflight"]["checks"] if c["name"] == "embedded raster resolution"]
+    assert len(layers) == 2 and all(c["message"] == "no raster layers" for c in layers)
