@@ -44,21 +44,48 @@ def _cmd_lint(args) -> int:
     from .render import load_project
     from .spec import build_spec
     project = load_project(args.project)
-    problems = 0
+    problems = cautioned = 0
     limit = int(project.config["stream_above_mb"] * 2 ** 20)
+    for note in _settings_notes(project):
+        print(f"figkit: caution: {note}", file=sys.stderr)
     for row in project.rows:
         try:
             spec = build_spec(row, project.config)
             spec.style.rc                      # parses and checks the style sheet
-            load_figure_data(spec, stream_above_bytes=limit)
+            notes = load_figure_data(spec, stream_above_bytes=limit).notes
             if spec.colour:
                 _lint_palette(spec)
         except FigkitError as exc:
             problems += 1
             print(f"figkit: error: {exc.at(row=row.number, figure=row.id)}", file=sys.stderr)
+            continue
+        cautioned += bool(notes)    # a misspelt orders value or filter value: likely mistakes
+        for note in notes:
+            print(f"figkit: caution: sheet row {row.number}, figure '{row.id}': {note}", file=sys.stderr)
     n = len(project.rows)
-    print(f"figkit: lint: {n} figure rows, {problems} with problems")
+    print(f"figkit: lint: {n} figure rows, {problems} with problems, {cautioned} with cautions")
     return 2 if problems else 0
+
+
+def _settings_notes(project) -> list[str]:
+    """Settings keyed by a field that no dataset has and no band defines (orders, colours,
+    fields): most likely a misspelt column name, silently unused."""
+    import difflib
+    from .data import read_columns
+    columns = set(project.config.get("bands") or {})
+    for path in (project.config.get("datasets") or {}).values():
+        try:
+            columns |= set(read_columns(project.config.root / path))
+        except FigkitError:
+            pass                                # a missing dataset is reported with its rows
+    out = []
+    for key in ("orders", "colours", "fields"):
+        for fld in project.config.get(key) or {}:
+            if fld not in columns:
+                close = difflib.get_close_matches(fld, sorted(columns), n=1)
+                out.append(f"config.yaml: {key}: '{fld}' is not a column of any dataset nor a band"
+                           + (f" (did you mean '{close[0]}'?)" if close else ""))
+    return out
 
 
 def _lint_palette(spec) -> None:

@@ -313,3 +313,21 @@ def test_a_filter_value_the_data_never_hold_is_named(project, tmp_path):
     err = proc.stderr.strip()
     assert proc.returncode == 2 and len(err.splitlines()) == 1
     assert "no rows left" in err and "'land_use' holds: arable, forest, pasture, urban" in err
+
+
+def test_lint_shows_likely_mistakes_in_settings_and_orders(project, tmp_path):
+    """Lint prints what a build would only caution about: an orders value the data never hold and
+    a settings key naming no column ('treatment'), with the closest spelling; exit 0 (cautions,
+    not errors) and a count in the summary."""
+    root = tmp_path / "p"
+    shutil.copytree(project, root, symlinks=True)
+    cfg = root / "config" / "config.yaml"
+    cfg.write_text(cfg.read_text().replace("land_use: [forest, pasture, arable, urban]",
+                                           "land_use: [forest, pastre, arable, urban]\n  lnad_use: [a, b]"))
+    write_sheet(root, GOOD)
+    proc = subprocess.run([sys.executable, "-m", "figkit", "lint"], cwd=root, capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    err = proc.stderr
+    assert "orders: 'lnad_use' is not a column of any dataset nor a band (did you mean 'land_use'?)" in err
+    assert "figure 'good'" in err and "did you mean 'pasture'" in err
+    assert "1 figure rows, 0 with problems, 1 with cautions" in proc.stdout
