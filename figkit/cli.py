@@ -63,7 +63,8 @@ def _cmd_lint(args) -> int:
         for note in notes:
             print(f"figkit: caution: sheet row {row.number}, figure '{row.id}': {note}", file=sys.stderr)
     n = len(project.rows)
-    print(f"figkit: lint: {n} figure rows, {problems} with problems, {cautioned} with cautions")
+    print(f"figkit: lint: {n} figure row{'' if n == 1 else 's'}, {problems} with problems, "
+          f"{cautioned} with cautions")
     return 2 if problems else 0
 
 

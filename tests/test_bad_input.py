@@ -330,4 +330,4 @@ def test_lint_shows_likely_mistakes_in_settings_and_orders(project, tmp_path):
     err = proc.stderr
     assert "orders: 'lnad_use' is not a column of any dataset nor a band (did you mean 'land_use'?)" in err
     assert "figure 'good'" in err and "did you mean 'pasture'" in err
-    assert "1 figure rows, 0 with problems, 1 with cautions" in proc.stdout
+    assert "1 figure row, 0 with problems, 1 with cautions" in proc.stdout
