@@ -468,10 +468,10 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
 
     def collect(chunk):
         for f in whole:
-            vals = _text_values(chunk, f) if f in compared else None
-            if f in compared and vals is None:
-                numeric.add(f)
-            whole[f].update((vals if vals is not None else chunk[f].dropna().unique()).tolist())
+            if f in compared and _text_values(chunk, f) is None:
+                numeric.add(f)          # numbers: a text filter value is not judged (as in memory)
+            if f in ordered or f not in numeric:   # no set of every number: memory stays bounded
+                whole[f].update(chunk[f].dropna().unique().tolist())
     step, done = _progress_printer(path)
     for chunk, read in _prepared_chunks(spec, step, collect):
         n_read += read
