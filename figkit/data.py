@@ -157,11 +157,15 @@ def filter_notes(spec: FigureSpec, values_of) -> list[str]:
         values = values_of(col)
         if values is None:
             continue
-        have = sorted({str(v) for v in values}, key=natural_key)
+        have = {str(v) for v in values}
         if text in have:
             continue
-        close = difflib.get_close_matches(text, have, n=1, cutoff=0.6)
-        shown = ", ".join(have[:8]) + (f" ... ({len(have) - 8} more)" if len(have) > 8 else "")
+        # an identifier column can hold a million values: no spelling search there; sorted, so
+        # ties of the search and the values shown are the same on every rebuild
+        small = len(have) <= 5000
+        pool = sorted(have, key=natural_key) if small else sorted(have)
+        close = difflib.get_close_matches(text, pool, n=1, cutoff=0.6) if small else []
+        shown = ", ".join(pool[:8]) + (f" ... ({len(have) - 8} more)" if len(have) > 8 else "")
         out.append(f"filter: {text!r} is not a value of '{col}' in the data, so it matches no row"
                    + (f" (did you mean {close[0]!r}?)" if close else "") + f"; '{col}' holds: {shown}")
     return out
