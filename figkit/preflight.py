@@ -734,7 +734,8 @@ def preflight_project(project, ids=(), *, strict: bool = False) -> list[tuple[st
     out = []
     for fid in ids or known:
         try:
-            style = project.spec(fid).style
+            spec = project.spec(fid)
+            style = spec.style
         except FigkitError as exc:
             out.append((fid, {"passed": False, "strict": strict, "checks": [
                 _check("sheet row", False, None, None, exc.message)]}))
@@ -746,7 +747,7 @@ def preflight_project(project, ids=(), *, strict: bool = False) -> list[tuple[st
                 _check("built", False, None, None, f"no {sidecar.name}; build the figure first")]}))
             continue
         result = preflight_figure(sidecar, style, strict=use_strict)
-        result["checks"].append(_up_to_date_check(sidecar, project, fid))
+        result["checks"].append(_up_to_date_check(sidecar, project, spec))
         result["passed"] = result["passed"] and result["checks"][-1]["passed"]
         result["strict"] = use_strict
         out.append((fid, result))
@@ -761,7 +762,7 @@ def preflight_project(project, ids=(), *, strict: bool = False) -> list[tuple[st
     return out
 
 
-def _up_to_date_check(sidecar: Path, project, fid: str) -> dict:
+def _up_to_date_check(sidecar: Path, project, spec) -> dict:
     """The figure was built from the data file, sheet row, style files and settings as they are
     now: their SHA-256 (and the row's fingerprint of the settings it reads) equal the sidecar's,
     so a figure left behind by a failed or partial build is caught here."""
@@ -770,13 +771,14 @@ def _up_to_date_check(sidecar: Path, project, fid: str) -> dict:
     from .sheet import find_row
     from .spec import fingerprint
     record = json.loads(sidecar.read_text(encoding="utf-8"))
-    spec = project.spec(fid)
-    row = find_row(project.rows, fid)
+    row = find_row(project.rows, spec.id)
     changed = []
     if not spec.data_path.is_file():
         changed.append(f"{spec.data_path.name} (missing)")
-    elif [input_record(spec.data_path, project.config.root)] != record.get("inputs"):
-        changed.append(input_record(spec.data_path, project.config.root)["path"])
+    else:
+        now = input_record(spec.data_path, project.config.root)   # hashes the file once
+        if [now] != record.get("inputs"):
+            changed.append(now["path"])
     if row_sha256(row.cells) != record.get("row_sha256"):
         changed.append("its sheet row")
     style = record.get("style") or {}

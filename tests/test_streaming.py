@@ -38,6 +38,15 @@ def _project(tmp_path: Path, fmt: str) -> Path:
     return tmp_path / name
 
 
+def _both_paths(spec, monkeypatch):
+    """(in memory, streamed in several uneven chunks) for one spec."""
+    monkeypatch.setattr(D, "CHUNK_ROWS", 7_000)
+    whole = D.load_figure_data(spec, stream_above_bytes=10 ** 12)
+    streamed = D.load_figure_data(spec, stream_above_bytes=0)
+    assert streamed.streamed is not None and whole.streamed is None
+    return whole, streamed
+
+
 def _spec(tmp_path, name, **cells):
     cfg = validate_config({"datasets": {"pts": name}}, tmp_path)
     return build_spec(check_row(2, {"id": "f", "dataset": "pts", **cells}), cfg)
@@ -135,10 +144,7 @@ def test_streamed_and_in_memory_give_the_same_orders_notes(tmp_path, monkeypatch
                            "orders": {"g": ["nrth", "south"]}}, tmp_path)
     spec = build_spec(check_row(2, {"id": "f", "dataset": "pts", "chart": "histogram", "x": "x",
                                     "strata": "g", "filter": 'g != "east"'}), cfg)
-    monkeypatch.setattr(D, "CHUNK_ROWS", 7_000)
-    whole = D.load_figure_data(spec, stream_above_bytes=10 ** 12)
-    streamed = D.load_figure_data(spec, stream_above_bytes=0)
-    assert streamed.streamed is not None
+    whole, streamed = _both_paths(spec, monkeypatch)
     assert streamed.notes == whole.notes and len(whole.notes) == 2
     assert "'nrth' (did you mean 'north'?)" in whole.notes[0] and "'east'" in whole.notes[1]
 
@@ -178,9 +184,6 @@ def test_streamed_and_in_memory_name_the_same_filter_typo(tmp_path, monkeypatch)
     path = _project(tmp_path, "csv")
     spec = _spec(tmp_path, path.relative_to(tmp_path).as_posix(), chart="histogram", x="x",
                  strata="h", filter='g in ["north", "sout"]')
-    monkeypatch.setattr(D, "CHUNK_ROWS", 7_000)
-    whole = D.load_figure_data(spec, stream_above_bytes=10 ** 12)
-    streamed = D.load_figure_data(spec, stream_above_bytes=0)
-    assert streamed.streamed is not None
+    whole, streamed = _both_paths(spec, monkeypatch)
     assert whole.notes == streamed.notes and len(whole.notes) == 1
     assert "'sout'" in whole.notes[0] and "did you mean 'south'" in whole.notes[0]
