@@ -6,7 +6,10 @@
     figkit palettes --out DIR  swatch sheets of every built-in palette under simulated vision
     figkit info FILE           what a figure file says about where it came from
     figkit preflight [ID ...]  re-check written figures against the house style's artwork rules
-    figkit compare OLD NEW     what changed between two builds of the figures
+    figkit snapshot NAME       record the current build as snapshot NAME
+    figkit snapshots           list the snapshots
+    figkit compare OLD [NEW]   what changed between two builds (snapshots or folders)
+    figkit check NAME          regression gate: exit 1 when the build differs from snapshot NAME
 
 A user's mistake prints one line (``figkit: error: ...``) and exits with status 2.
 """
@@ -143,12 +146,115 @@ def _cmd_preflight(args) -> int:
     return 1 if failed else 0
 
 
+def _project_or_none(folder: str):
+    """The manuscript folder's project, or None where there is none (plain folders compared)."""
+    from .render import load_project
+    from .sheet import CONFIG_FILE
+    if not (Path(folder) / CONFIG_FILE).is_file():
+        return None
+    return load_project(folder)
+
+
+def _thresholds(project, args=None):
+    """The review thresholds of the project's house style, overridden by command-line options."""
+    from dataclasses import replace
+    from .compare import Thresholds
+    from .style import load_style
+    th = Thresholds()
+    if project is not None:
+        style = load_style(project.config["style"], project.root / project.config["styles_dir"])
+        th = Thresholds.from_settings(style.review)
+    over = {k: getattr(args, k) for k in ("ssim_min", "rms_max", "stats_rel_tol", "compare_dpi")
+            if args is not None and getattr(args, k, None) is not None}
+    return Thresholds.from_settings({**th.as_dict(), **over}) if over else replace(th)
+
+
 def _cmd_compare(args) -> int:
-    """Differences are information, not errors: exit 0 whatever changed."""
-    from .compare import compare_folders
-    report = compare_folders(args.old, args.new, out_dir=args.out, tolerance=args.tolerance)
+    """Differences are information, not errors: exit 0 whatever changed (``figkit check`` is the
+    gate that exits 1); 2 for bad input."""
+    from .compare import compare_builds
+    from .snapshot import resolve_build
+    project = _project_or_none(args.project)
+    old = resolve_build(args.old, project)
+    new = resolve_build(args.new, project)
+    th = _thresholds(project, args)
+    report = compare_builds(old, new, thresholds=th, out_dir=args.out, tolerance=args.tolerance,
+                            keep_images=bool(args.review))
     print(report.summary())
+    if args.review:
+        from .review import write_review
+        page = write_review(report, old, new, Path(args.review))
+        print(f"figkit: review page -> {page}")
+    print(f"figkit: compare: took {report.seconds:.1f} s", file=sys.stderr)
     return 0
+
+
+def _cmd_snapshot(args) -> int:
+    from .render import load_project
+    from .snapshot import take_snapshot
+    project = load_project(args.project)
+    m = take_snapshot(project, args.name, replace=args.replace, note=args.note)
+    st = m["stored"]
+    print(f"figkit: snapshot '{m['name']}': {len(m['figures'])} figures, {st['files']} files "
+          f"({st['new_bytes'] / 2**20:.1f} MiB newly stored, {st['shared_files']} already in "
+          f"the store) -> {project.config.results / 'snapshots' / m['name']}")
+    if m["not_built"]:
+        print(f"figkit: caution: not built, so not in the snapshot: {', '.join(m['not_built'])}",
+              file=sys.stderr)
+    if m["older_than_data"]:
+        print("figkit: caution: older than their data files (rebuild before approving): "
+              + ", ".join(m["older_than_data"]), file=sys.stderr)
+    if st["copied"]:
+        print(f"figkit: caution: {st['copied']} files copied, not linked (no hard links here)",
+              file=sys.stderr)
+    return 0
+
+
+def _cmd_snapshots(args) -> int:
+    from .render import load_project
+    from .snapshot import inputs_differ, list_snapshots, project_hashes
+    project = load_project(args.project)
+    found = list_snapshots(project)
+    if not found:
+        print("figkit: no snapshots yet; take one with 'figkit snapshot NAME'")
+        return 0
+    now = project_hashes(project)
+    rows = [("name", "taken (UTC)", "figures", "differs from now")]
+    for m in found:
+        if "error" in m:
+            rows.append((m["name"], "?", "?", m["error"]))
+            continue
+        diff = inputs_differ(m.get("project") or {}, now)
+        rows.append((m["name"], str(m.get("created", "")).replace("T", " ").replace("+00:00", ""),
+                     str(len(m.get("figures") or [])), ", ".join(diff) or "nothing"))
+    widths = [max(len(r[i]) for r in rows) for i in range(3)]
+    for r in rows:
+        print("  ".join(c.ljust(w) for c, w in zip(r, widths)) + "  " + r[3])
+    return 0
+
+
+def _cmd_check(args) -> int:
+    """Exit 0 when every figure matches the snapshot within tolerance, 1 when any differs, 2 for
+    bad input (an unknown snapshot, a broken sheet)."""
+    from .gate import check_against, write_junit
+    from .render import load_project
+    from .snapshot import MANIFEST, current_build, list_snapshots, snapshot_build, snapshots_dir
+    project = load_project(args.project)
+    folder = snapshots_dir(project) / args.name
+    if not (folder / MANIFEST).is_file():
+        folder = Path(args.name)                   # a snapshot folder given by its path
+        if not (folder / MANIFEST).is_file():
+            raise FigkitError("no snapshot of that name", field="NAME", value=args.name,
+                              allowed=[m["name"] for m in list_snapshots(project)]
+                              or "none yet: take one with 'figkit snapshot NAME'")
+    old = snapshot_build(folder)
+    result = check_against(old, current_build(project), _thresholds(project, args),
+                           old.name or args.name)
+    for line in result.lines():
+        print(line)
+    if args.junit:
+        print(f"figkit: check: JUnit report -> {write_junit(result, Path(args.junit))}")
+    return 0 if result.passed else 1
 
 
 SCAFFOLD_SNAKEFILE = """\
@@ -252,14 +358,47 @@ def build_parser() -> argparse.ArgumentParser:
     pf.add_argument("--project", default=".", help="manuscript folder (default: here)")
     pf.add_argument("--strict", action="store_true", help="judge colour separability too (a failing check, not a warning)")
     pf.set_defaults(func=_cmd_preflight)
-    cmp = sub.add_parser("compare", help="say what changed between two folders of built figures")
-    cmp.add_argument("old", help="folder of the earlier build (results/figures)")
-    cmp.add_argument("new", help="folder of the later build")
+    sn = sub.add_parser("snapshot", help="record the current build under results/snapshots/NAME",
+                        description="Record every built figure of the sheet (figure files, "
+                        "sidecars, stats files) and the SHA-256 of sheet, settings, styles and "
+                        "datasets. Unchanged files are stored once across snapshots.",
+                        epilog="example: figkit snapshot submitted-v1")
+    sn.add_argument("name", metavar="NAME", help="the snapshot's name (letters, digits, . _ -)")
+    sn.add_argument("--replace", action="store_true", help="overwrite an existing snapshot NAME")
+    sn.add_argument("--note", help="a line kept in the manifest (e.g. 'as submitted')")
+    sn.add_argument("--project", default=".", help="manuscript folder (default: here)")
+    sn.set_defaults(func=_cmd_snapshot)
+    sl = sub.add_parser("snapshots", help="list the snapshots and what differs from now")
+    sl.add_argument("--project", default=".", help="manuscript folder (default: here)")
+    sl.set_defaults(func=_cmd_snapshots)
+    cmp = sub.add_parser("compare", help="say what changed between two builds (snapshots or folders)",
+                         description="What changed between two builds: the changes that alter a "
+                         "conclusion first, then the numbers, then the pixels. Exit status 0 "
+                         "whatever changed (see 'figkit check' for a gate), 2 for bad input.",
+                         epilog="examples: figkit compare submitted-v1 --review review/   |   "
+                         "figkit compare old/results new/results")
+    cmp.add_argument("old", help="snapshot name, snapshot folder or folder of built figures")
+    cmp.add_argument("new", nargs="?", help="the same kinds (default: the current build)")
+    cmp.add_argument("--review", metavar="DIR", help="write a review page DIR/index.html")
     cmp.add_argument("--out", help="folder for changes.md and one difference image per changed render")
     cmp.add_argument("--tolerance", type=float, default=0.0, metavar="RMS",
-                     help="pixel RMS (0-255 scale) up to which two renders count as the same "
-                          "(default 0)")
+                     help="pixel RMS (0-255 scale, at the comparison resolution) up to which two "
+                          "renders count as the same (default 0)")
+    cmp.add_argument("--project", default=".", help="manuscript folder (default: here)")
     cmp.set_defaults(func=_cmd_compare)
+    ck = sub.add_parser("check", help="regression gate: exit 1 when the build differs from a snapshot",
+                        description="Check the current build against snapshot NAME: exit 0 when "
+                        "every figure matches within tolerance, 1 when any differs, 2 for bad "
+                        "input. Tolerances come from the house style's review: settings.",
+                        epilog="example: snakemake --cores 2 && figkit check approved --junit "
+                        "results/figure-check.xml")
+    ck.add_argument("name", metavar="NAME", help="the approved snapshot")
+    ck.add_argument("--junit", metavar="FILE", help="write a JUnit XML report (one case per figure)")
+    ck.add_argument("--ssim-min", type=float, dest="ssim_min", help="override review.ssim_min")
+    ck.add_argument("--rms-max", type=float, dest="rms_max", help="override review.rms_max")
+    ck.add_argument("--rel-tol", type=float, dest="stats_rel_tol", help="override review.stats_rel_tol")
+    ck.add_argument("--project", default=".", help="manuscript folder (default: here)")
+    ck.set_defaults(func=_cmd_check)
     return p
 
 

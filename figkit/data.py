@@ -7,7 +7,6 @@ categorical, else numeric order for numbers, else natural sort ("S2" before "S10
 """
 from __future__ import annotations
 
-import hashlib
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -16,15 +15,8 @@ import numpy as np
 import pandas as pd
 
 from .errors import FigkitError
+from .provenance import sha256_file  # noqa: F401  (also figkit.data.sha256_file, as before)
 from .spec import CATEGORY, NUMERIC, Banding, FigureSpec, check_columns
-
-
-def sha256_file(path: Path, chunk: int = 1 << 20) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(chunk), b""):
-            h.update(block)
-    return h.hexdigest()
 
 
 def _reader(path: Path):

@@ -3,7 +3,7 @@ settings — size presets in mm, text sizes in pt, minimum sizes, palette, lette
 from __future__ import annotations
 
 import hashlib
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import lru_cache
 from pathlib import Path
 
@@ -48,6 +48,7 @@ class HouseStyle:
     strata_note: bool = False   # print the strata comparison under the figure
     diverging: str = "rdbu"  # used when a numeric colour field is given a centre value
     min_dpi: int = 500       # raster floor: 500-600 dpi for line art over halftone (journal guides)
+    review: dict = field(default_factory=lambda: dict(REVIEW_DEFAULTS))  # see REVIEW_DEFAULTS
 
     @property
     def rc(self) -> dict:
@@ -64,6 +65,43 @@ class HouseStyle:
 
     def digest(self) -> dict:
         return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in self.files}
+
+
+# What `figkit compare` calls a change of conclusion, and what `figkit check` lets through.  The
+# house style's `review:` block may set any of them; the values in force are written into every
+# comparison's output.
+REVIEW_DEFAULTS = {
+    "share_points": 5.0,     # a share moving by >= 5 percentage points (common practice, no source)
+    "n_percent": 10.0,       # a panel's n moving by >= 10 % (common practice, no source)
+    "p_level": 0.05,         # the strata test crossing the conventional 5 % level (Fisher 1925)
+    "compare_dpi": 150.0,    # renders are compared box-filtered to this resolution (screen review)
+    "ssim_min": 0.99,        # gate: mean SSIM at compare_dpi at least this (common practice, no source)
+    "rms_max": 2.0,          # gate: RMS pixel difference (0-255) at compare_dpi at most this (ditto)
+    "stats_rel_tol": 1e-6,   # gate: statistics equal within this relative tolerance; n is exact
+}
+_REVIEW_LIMITS = {"share_points": (0, 100), "n_percent": (0, 1000), "p_level": (0, 1),
+                  "compare_dpi": (10, 1200), "ssim_min": (-1, 1), "rms_max": (0, 255),
+                  "stats_rel_tol": (0, 1)}
+
+
+def review_settings(data, where: str) -> dict:
+    """The `review:` block of a house style over :data:`REVIEW_DEFAULTS`, each value checked."""
+    out = dict(REVIEW_DEFAULTS)
+    if data is None:
+        return out
+    if not isinstance(data, dict):
+        raise FigkitError(f"{where}: review must be a mapping of settings", value=data,
+                          allowed=sorted(REVIEW_DEFAULTS))
+    for key, value in data.items():
+        if key not in REVIEW_DEFAULTS:
+            raise FigkitError(f"{where}: unknown review setting", field=f"review.{key}", value=key,
+                              allowed=sorted(REVIEW_DEFAULTS))
+        lo, hi = _REVIEW_LIMITS[key]
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not lo <= value <= hi:
+            raise FigkitError(f"{where}: review.{key} must be a number from {lo} to {hi}",
+                              field=f"review.{key}", value=value)
+        out[key] = float(value)
+    return out
 
 
 _REQUIRED = {"sheet", "sizes", "max_height_mm", "panel", "text", "minimums", "palette", "sequential",
@@ -130,4 +168,5 @@ def load_style(name: str, styles_dir: Path | str, extra_sizes: dict | None = Non
         strict=bool(data["strict"]), dpi=int(dpi or data["dpi"]),
         min_colour_difference=float(data.get("min_colour_difference", 10.0)),
         min_dpi=int(mins.get("dpi", 500)), diverging=str(data.get("diverging", "rdbu")),
-        strata_note=bool(data.get("strata_note", False)))
+        strata_note=bool(data.get("strata_note", False)),
+        review=review_settings(data.get("review"), f"house style {path}"))
