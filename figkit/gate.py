@@ -106,16 +106,16 @@ def junit_xml(result: GateResult) -> bytes:
     th = result.report.thresholds
     suites = ET.Element("testsuites", name="figkit check")
     suite = ET.SubElement(suites, "testsuite", {
-        "name": f"figures against snapshot '{result.snapshot}'",
+        "name": _xml_text(f"figures against snapshot '{result.snapshot}'"),
         "tests": str(len(result.verdicts)), "failures": str(len(result.failed)),
         "errors": "0", "skipped": "0", "time": f"{result.report.seconds:.3f}",
         "timestamp": datetime.now(timezone.utc).isoformat(timespec="seconds")})
     props = ET.SubElement(suite, "properties")
     for k, v in [("snapshot", result.snapshot), ("old", result.report.old_label),
                  ("new", result.report.new_label)] + list(th.as_dict().items()):
-        ET.SubElement(props, "property", name=str(k), value=str(v))
+        ET.SubElement(props, "property", name=_xml_text(k), value=_xml_text(v))
     for v in result.verdicts:
-        case = ET.SubElement(suite, "testcase", classname="figkit.figures", name=v.id,
+        case = ET.SubElement(suite, "testcase", classname="figkit.figures", name=_xml_text(v.id),
                              time=f"{v.seconds:.3f}")
         if not v.passed:
             fail = ET.SubElement(case, "failure", message=_xml_text(v.reasons[0]),

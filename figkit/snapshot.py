@@ -263,6 +263,8 @@ def resolve_build(text: str | None, project) -> Build:
     if (path / MANIFEST).is_file():
         return snapshot_build(path)
     if path.is_dir():
+        if not any(path.glob("*.json")) and (path / "figures").is_dir():
+            path = path / "figures"             # a results folder was given
         return Build(str(path), path)
     known = [m["name"] for m in list_snapshots(project)] if project is not None else []
     raise FigkitError("no snapshot or folder of that name", value=text,

@@ -302,6 +302,13 @@ def builds(tmp_path_factory):
     return old, new
 
 
+def _reduced(path, factor=2):
+    """A render box-filtered by a whole factor with Pillow's ``Image.reduce`` (the reference for
+    the comparison resolution: the test projects draw at 300 dpi, compared at 150)."""
+    with Image.open(path) as im:
+        return np.asarray(im.convert("RGB").reduce(factor))
+
+
 def test_compare_folders_end_to_end(builds, tmp_path):
     old, new = builds
     out = tmp_path / "cmp"
@@ -310,18 +317,22 @@ def test_compare_folders_end_to_end(builds, tmp_path):
     assert [f.id for f in report.unchanged] == ["steady"]
     (growth,) = report.changed
     assert growth.id == "growth" and growth.pixels == "differ"
+    # n 30 -> 40 is +33 %, past the 10 % that changes a conclusion: listed first, as a conclusion
+    concl = {c.what: c for c in growth.conclusions}
+    assert (concl["panel 'south' n"].old, concl["panel 'south' n"].new) == (30, 40)
+    assert concl["panel 'south' n"].level == "conclusion"
     whats = {c.what: c for c in growth.changes}
-    assert (whats["panel 'south' n"].old, whats["panel 'south' n"].new) == (30, 40)
     assert "panel 'south' slope" in whats and "panel 'north' slope" not in whats
     assert whats["panel 'south' slope"].new > whats["panel 'south' slope"].old
-    assert "input data/obs.csv" in whats
+    assert whats["input data/obs.csv"].level == "provenance"
     assert growth.rms > 0 and 0 < growth.ssim < 1
-    # the pixel numbers are those of the files on disk, by the reference implementations
-    a = C.load_render(old / "growth.png")
-    b = C.load_render(new / "growth.png")
+    # the pixel numbers are those of the files on disk reduced to 150 dpi, by the references
+    a, b = _reduced(old / "growth.png"), _reduced(new / "growth.png")
     assert growth.rms == pytest.approx(calculate_rms(a.astype(np.int16), b.astype(np.int16)))
+    assert growth.ssim == pytest.approx(reference_ssim(C.luminance(a), C.luminance(b)), abs=1e-4)
     md = (out / "changes.md").read_text(encoding="utf-8")
     assert "## growth" in md and "panel 'south' n: 30 -> 40" in md
+    assert md.index("Changes a reader's conclusion") < md.index("panel 'south' slope")
     assert "Unchanged: steady." in md and "## steady" not in md
     assert "## Figures added" in md and "- extra" in md and "- gone" in md
     assert growth.diff_png == out / "growth.diff.png" and "growth.diff.png" in md
@@ -341,16 +352,27 @@ def test_tolerance_and_same_folder(builds):
     assert growth.pixels == "within tolerance" and growth.diff_png is None
 
 
-def test_renders_of_different_size_are_reported_not_compared(builds, tmp_path):
+def test_renders_of_different_size_are_still_compared(builds, tmp_path):
+    """A render 10 px wider at 300 dpi (0.85 mm) is compared on a common canvas at 150 dpi and
+    the size change reported (it used to be "not compared")."""
     old, _ = builds
     bigger = tmp_path / "bigger"
     shutil.copytree(old, bigger)
     with Image.open(old / "steady.png") as im:
-        im.resize((im.width + 10, im.height)).save(bigger / "steady.png")
+        wide = Image.new("RGBA", (im.width + 10, im.height), (255, 255, 255, 255))
+        wide.paste(im, (0, 0))
+        wide.save(bigger / "steady.png", dpi=(300, 300))
     report = C.compare_folders(old, bigger, tmp_path / "out")
     (steady,) = report.changed
-    assert steady.pixels == "sizes differ" and steady.rms is None and steady.diff_png is None
-    assert "not compared" in steady.pixel_text()
+    assert steady.size_change == "width +0.8 mm"          # 10 px / 300 dpi * 25.4 = 0.847 mm
+    # same drawing, white strip added: compared, and the pixels on the common canvas are equal
+    assert steady.rms == 0.0 and steady.ssim == pytest.approx(1.0)
+    assert "size changed: width +0.8 mm" in steady.pixel_text()
+    with Image.open(old / "steady.png") as im:
+        smaller = im.crop((0, 0, im.width, im.height - 40))
+        smaller.save(bigger / "steady.png", dpi=(300, 300))
+    (steady,) = C.compare_folders(old, bigger).changed
+    assert steady.size_change == "height -3.4 mm" and steady.rms > 0 and steady.ssim < 1
 
 
 def test_cli_compare_prints_summary_and_exits_0(builds, tmp_path, capsys):
@@ -358,9 +380,9 @@ def test_cli_compare_prints_summary_and_exits_0(builds, tmp_path, capsys):
     old, new = builds
     assert main(["compare", str(old), str(new), "--out", str(tmp_path / "o")]) == 0
     text = capsys.readouterr().out
-    assert text.startswith("figkit: compare: 2 figures in both folders: 1 changed, 1 unchanged; "
-                           "1 added, 1 removed")
-    assert "panel 'south' n: 30 -> 40" in text and (tmp_path / "o" / "changes.md").is_file()
+    assert ("figkit: compare: 2 figures in both: 1 changed (1 with a changed conclusion), "
+            "1 unchanged; 1 added, 1 removed") in text
+    assert "CONCLUSION panel 'south' n: 30 -> 40" in text and (tmp_path / "o" / "changes.md").is_file()
     # results folder (holding figures/) is accepted too
     assert main(["compare", str(old.parent), str(new.parent)]) == 0
     assert "1 changed" in capsys.readouterr().out
@@ -371,7 +393,7 @@ def test_cli_compare_bad_folder_is_one_line_error(builds, tmp_path, capsys):
     old, _ = builds
     assert main(["compare", str(old), str(tmp_path / "nowhere")]) == 2
     err = capsys.readouterr().err.strip()
-    assert err.startswith("figkit: error:") and "not a folder" in err and "\n" not in err
+    assert err.startswith("figkit: error:") and "no snapshot or folder" in err and "\n" not in err
     (tmp_path / "empty").mkdir()
     (tmp_path / "empty2").mkdir()
     assert main(["compare", str(tmp_path / "empty"), str(tmp_path / "empty2")]) == 2

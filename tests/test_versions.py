@@ -1,0 +1,452 @@
+"""Figures across data versions: snapshots, compare by name, conclusion-level changes, the review
+page and the regression gate.
+
+External references used, named beside each check:
+* statsmodels ``OLS(...).fit().conf_int()`` (95% slope interval) and ``anova_lm`` of nested OLS
+  models (the strata F-test of equal slopes) — Seabold & Perktold (2010);
+* pandas ``crosstab(..., normalize="index")`` for shares (percentage points by hand arithmetic);
+* Python's ``hashlib.sha256`` (FIPS 180-4) for the manifest's hashes; ``os.stat`` inode numbers
+  for hard links (POSIX ``link()``);
+* ``xml.etree.ElementTree`` for the JUnit XML; the element and attribute names (testsuites,
+  testsuite, testcase, failure; tests, failures, name, classname, message) are those CI servers
+  read, as pytest's own ``--junitxml`` writes them (checked below against a pytest run);
+* headless Chromium (Debian package) for the review page, via tests/browser.py.
+Constructed data is generated in each test; the demo data (invented) only in the end-to-end run.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import shutil
+import subprocess
+import sys
+import xml.etree.ElementTree as ET
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from figkit import compare as CMP
+from figkit import snapshot as S
+from figkit.cli import main
+from figkit.errors import FigkitError
+
+from browser import require_browser, visit
+from conftest import make_demo_data, snakemake
+
+ROOT = Path(__file__).resolve().parents[1]
+
+CONFIG = """\
+sheet: config/figures.tsv
+results: results
+style: house
+formats: [png]
+dpi: 300
+datasets:
+  obs: data/obs.csv
+"""
+
+
+def _project(root: Path, rows: list[dict], obs: pd.DataFrame) -> Path:
+    """A tiny project drawn with figkit.render (no Snakemake): one dataset, the given rows."""
+    from figkit.render import load_project, render
+    (root / "config").mkdir(parents=True, exist_ok=True)
+    (root / "data").mkdir(exist_ok=True)
+    if not (root / "styles").exists():
+        (root / "styles").symlink_to(ROOT / "figkit" / "styles")
+    (root / "config" / "config.yaml").write_text(CONFIG, encoding="utf-8")
+    header = sorted({k for r in rows for k in r}, key=lambda k: (k != "id", k))
+    lines = ["\t".join(header)] + ["\t".join(str(r.get(k, "")) for k in header) for r in rows]
+    (root / "config" / "figures.tsv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    obs.to_csv(root / "data" / "obs.csv", index=False)
+    project = load_project(root)
+    for r in rows:
+        render(project, r["id"])
+    return root
+
+
+def _two_versions(tmp_path, rows, old: pd.DataFrame, new: pd.DataFrame):
+    """Build, snapshot as 'v1', replace the data, rebuild; returns (project, report)."""
+    from figkit.render import load_project
+    root = _project(tmp_path / "p", rows, old)
+    S.take_snapshot(load_project(root), "v1")
+    _project(root, rows, new)
+    project = load_project(root)
+    report = CMP.compare_builds(S.resolve_build("v1", project), S.current_build(project))
+    return project, report
+
+
+def _conclusions(report, fid):
+    (fc,) = [f for f in report.figures if f.id == fid]
+    return fc.conclusions
+
+
+# ----------------------------------------------------------------------------- conclusions
+
+def test_slope_interval_that_starts_to_cover_zero_is_a_conclusion(tmp_path):
+    """Removing rows widens a slope interval until it covers 0: the reader can no longer say the
+    slope is positive.  Whether each interval covers 0 is taken from statsmodels OLS."""
+    import statsmodels.api as sm
+    rng = np.random.default_rng(1979)
+    x = rng.uniform(0, 10, 80)
+    y = 1.0 + 0.25 * x + rng.normal(0, 1.5, 80)
+    full = pd.DataFrame({"site": "north", "dose": x.round(3), "growth": y.round(3)})
+    few = full.iloc[:7]
+
+    def covers_zero(df):
+        lo, hi = sm.OLS(df["growth"], sm.add_constant(df["dose"])).fit().conf_int(0.05).loc["dose"]
+        return lo <= 0 <= hi
+    assert not covers_zero(full) and covers_zero(few)     # the construction works (statsmodels)
+    rows = [{"id": "growth", "dataset": "obs", "chart": "scatter", "x": "dose", "y": "growth",
+             "strata": "site", "trend": "line", "size": "single"}]
+    _, report = _two_versions(tmp_path, rows, full, few)
+    concl = {c.what: c for c in _conclusions(report, "growth")}
+    trend = concl["panel 'north' line trend"]
+    assert "95% interval now includes 0" in trend.note and trend.level == "conclusion"
+    sm_ci = sm.OLS(few["growth"], sm.add_constant(few["dose"])).fit().conf_int(0.05).loc["dose"]
+    assert trend.new == pytest.approx(list(sm_ci), rel=1e-6)
+    assert concl["panel 'north' n"].old == 80 and concl["panel 'north' n"].new == 7
+    # the terminal lists it before any numeric detail
+    text = report.summary()
+    assert text.index("CONCLUSION panel 'north' line trend") < text.index("slope_ci_low")
+
+
+def test_slope_sign_change_is_a_conclusion_and_a_steady_slope_is_not(tmp_path):
+    rng = np.random.default_rng(7)
+    x = rng.uniform(0, 10, 60)
+    e = rng.normal(0, 0.5, 60)
+    old = pd.DataFrame({"site": ["a"] * 30 + ["b"] * 30, "dose": x.round(3),
+                        "growth": np.r_[0.8 * x[:30], 0.5 * x[30:]] + e})
+    new = old.copy()
+    new.loc[new.site == "a", "growth"] = -0.8 * x[:30] + e[:30]
+    rows = [{"id": "g", "dataset": "obs", "chart": "scatter", "x": "dose", "y": "growth",
+             "strata": "site", "trend": "line", "size": "full"}]
+    _, report = _two_versions(tmp_path, rows, old, new)
+    concl = {c.what: c for c in _conclusions(report, "g")}
+    assert "slope changed sign" in concl["panel 'a' line trend"].note
+    assert "panel 'b' line trend" not in concl         # b's data did not change
+
+
+def test_strata_test_crossing_005_is_a_conclusion_with_p_from_anova_lm(tmp_path):
+    """Two sites with equal slopes (p well above 0.05), then with different slopes (p below):
+    figkit's p equals statsmodels ``anova_lm`` of the nested models y ~ x + site and
+    y ~ x * site, and the crossing is flagged."""
+    import statsmodels.formula.api as smf
+    from statsmodels.stats.anova import anova_lm
+    rng = np.random.default_rng(2010)
+    x = rng.uniform(0, 10, 80)
+    e = rng.normal(0, 1.0, 80)
+    site = np.repeat(["north", "south"], 40)
+    old = pd.DataFrame({"site": site, "dose": x.round(4), "growth": (2 + 0.5 * x + e).round(4)})
+    new = old.copy()
+    new.loc[40:, "growth"] = (2 + 0.9 * x[40:] + e[40:]).round(4)
+
+    def p_anova(df):
+        small = smf.ols("growth ~ dose + C(site)", df).fit()
+        big = smf.ols("growth ~ dose * C(site)", df).fit()
+        return float(anova_lm(small, big)["Pr(>F)"].iloc[1])
+    p_old, p_new = p_anova(old), p_anova(new)
+    assert p_old >= 0.05 > p_new                       # the construction crosses (statsmodels)
+    rows = [{"id": "g", "dataset": "obs", "chart": "scatter", "x": "dose", "y": "growth",
+             "strata": "site", "trend": "line", "size": "full"}]
+    _, report = _two_versions(tmp_path, rows, old, new)
+    (c,) = [c for c in _conclusions(report, "g") if c.what == "strata test p"]
+    assert c.old == pytest.approx(p_old, rel=1e-6) and c.new == pytest.approx(p_new, rel=1e-6)
+    assert "now below 0.05" in c.note
+
+
+def test_shares_moved_by_five_points_or_more_are_conclusions(tmp_path):
+    """Shares of 'yes' per category: A moves by +6 points, B by +3, C by exactly +5 (the
+    threshold counts, "moving by >= 5").  Points checked against a pandas crosstab."""
+    def frame(counts):
+        recs = [(cat, ans) for cat, (yes, no) in counts.items()
+                for ans, k in (("yes", yes), ("no", no)) for _ in range(k)]
+        return pd.DataFrame(recs, columns=["kind", "answer"])
+    old = frame({"A": (30, 70), "B": (50, 50), "C": (20, 80)})
+    new = frame({"A": (36, 64), "B": (53, 47), "C": (25, 75)})
+    ct = lambda df: pd.crosstab(df["kind"], df["answer"], normalize="index")["yes"]  # noqa: E731
+    moved = ((ct(new) - ct(old)) * 100).round(9)
+    assert moved.to_dict() == {"A": 6.0, "B": 3.0, "C": 5.0}
+    rows = [{"id": "s", "dataset": "obs", "chart": "shares", "x": "kind", "colour": "answer",
+             "size": "single"}]
+    _, report = _two_versions(tmp_path, rows, old, new)
+    shares = {c.what: c for c in _conclusions(report, "s") if "share of" in c.what}
+    flagged = sorted(w.split("at '")[1].rstrip("'") for w in shares)
+    assert flagged == sorted(k for k, v in moved.items() if v >= 5)      # A and C, not B
+    full = lambda df: pd.crosstab(df["kind"], df["answer"], normalize="index")  # noqa: E731
+    for w, c in shares.items():          # "share of '<stacked group>' at '<category>'"
+        group, kind = w.split("share of '")[1].split("' at '")
+        kind = kind.rstrip("'")
+        points = (full(new).loc[kind, group] - full(old).loc[kind, group]) * 100
+        assert (c.new - c.old) * 100 == pytest.approx(points)
+        assert c.note == f"{points:+.1f} percentage points"
+
+
+def test_order_of_groups_and_categories_appearing(tmp_path):
+    """Box medians by hand: old a < b < c; new b above c (a swap), and category d appears."""
+    old = pd.DataFrame({"grp": list("aaabbbccc"), "v": [1, 2, 3, 4, 5, 6, 7, 8, 9]})
+    new = pd.DataFrame({"grp": list("aaabbbcccddd"), "v": [1, 2, 3, 9, 10, 11, 7, 8, 9, 2, 2, 2]})
+    rows = [{"id": "b", "dataset": "obs", "chart": "box", "x": "grp", "y": "v", "size": "single"}]
+    _, report = _two_versions(tmp_path, rows, old, new)
+    concl = _conclusions(report, "b")
+    order = [c for c in concl if "order of groups" in c.what]
+    assert len(order) == 1 and "'b' now above 'c'" in order[0].note
+    assert order[0].old == "c > b > a" and order[0].new == "b > c > a"
+    assert any(c.what.endswith("groups new") and c.new == ["d"] for c in concl)
+
+
+def test_unchanged_pixels_and_numbers_are_unchanged_whatever_the_inputs_say(tmp_path):
+    """Same drawing, other input hash and other PNG text: "unchanged", the input reported."""
+    from PIL import Image, PngImagePlugin
+    rng = np.random.default_rng(3)
+    df = pd.DataFrame({"site": "n", "dose": rng.uniform(0, 9, 40).round(2),
+                       "growth": rng.uniform(0, 9, 40).round(2)})
+    rows = [{"id": "h", "dataset": "obs", "chart": "histogram", "x": "dose", "size": "single"}]
+    root = _project(tmp_path / "p", rows, df)
+    figs = root / "results" / "figures"
+    other = tmp_path / "other"
+    shutil.copytree(figs, other)
+    sc = json.loads((other / "h.json").read_text())
+    sc["inputs"][0]["sha256"] = "0" * 64
+    (other / "h.json").write_text(json.dumps(sc))
+    with Image.open(figs / "h.png") as im:
+        info = PngImagePlugin.PngInfo()
+        info.add_text("Comment", "another provenance text")
+        im.save(other / "h.png", pnginfo=info, dpi=(300, 300))
+    report = CMP.compare_folders(figs, other)
+    (fc,) = report.figures
+    assert not fc.changed and fc.pixels == "identical"
+    assert [c.what for c in fc.provenance] == ["input data/obs.csv"]
+    assert "unchanged although their inputs changed: h" in report.summary()
+
+
+# ----------------------------------------------------------------------------- snapshots
+
+def _file_hash(p: Path) -> str:
+    return hashlib.sha256(p.read_bytes()).hexdigest()
+
+
+def test_snapshot_manifest_hashes_and_no_overwrite(tmp_path):
+    from figkit.render import load_project
+    rng = np.random.default_rng(4)
+    df = pd.DataFrame({"site": "n", "dose": rng.uniform(0, 9, 30).round(2),
+                       "growth": rng.uniform(0, 9, 30).round(2)})
+    rows = [{"id": "h", "dataset": "obs", "chart": "histogram", "x": "dose", "size": "single"},
+            {"id": "never", "dataset": "obs", "chart": "histogram", "x": "growth", "size": "single"}]
+    root = _project(tmp_path / "p", rows[:1], df)
+    (root / "config" / "figures.tsv").write_text(
+        "id\tdataset\tchart\tx\tsize\nh\tobs\thistogram\tdose\tsingle\n"
+        "never\tobs\thistogram\tgrowth\tsingle\n", encoding="utf-8")
+    project = load_project(root)
+    m = S.take_snapshot(project, "first", note="as submitted")
+    folder = root / "results" / "snapshots" / "first"
+    on_disk = json.loads((folder / "manifest.json").read_text())
+    assert on_disk["name"] == "first" and on_disk["note"] == "as submitted"
+    assert on_disk["figures"] == ["h"] and on_disk["not_built"] == ["never"]
+    # every hash is the file's SHA-256 (hashlib, FIPS 180-4)
+    assert on_disk["project"]["datasets"]["obs"]["sha256"] == _file_hash(root / "data" / "obs.csv")
+    assert on_disk["project"]["sheet"]["sha256"] == _file_hash(root / "config" / "figures.tsv")
+    assert on_disk["project"]["settings"]["sha256"] == _file_hash(root / "config" / "config.yaml")
+    assert on_disk["project"]["styles"]["house.yaml"] == _file_hash(root / "styles" / "house.yaml")
+    for rel, rec in on_disk["files"].items():
+        assert rec["sha256"] == _file_hash(folder / rel)
+        assert rec["sha256"] == _file_hash(root / "results" / "figures" / Path(rel).name)
+    assert sorted(on_disk["files"]) == ["figures/h.json", "figures/h.png", "figures/h.stats.csv"]
+    assert m["stored"]["files"] == 3
+    # never overwritten silently; --replace does, and leaves no temporary folder behind
+    with pytest.raises(FigkitError, match="exists .*--replace"):
+        S.take_snapshot(project, "first")
+    S.take_snapshot(project, "first", replace=True, note="again")
+    assert json.loads((folder / "manifest.json").read_text())["note"] == "again"
+    assert sorted(p.name for p in (root / "results" / "snapshots").iterdir()) == [".store", "first"]
+
+
+def test_a_failed_snapshot_leaves_nothing(tmp_path, monkeypatch):
+    from figkit.render import load_project
+    df = pd.DataFrame({"dose": np.arange(30.0), "growth": np.arange(30.0)})
+    root = _project(tmp_path / "p", [{"id": "h", "dataset": "obs", "chart": "histogram",
+                                       "x": "dose", "size": "single"}], df)
+    project = load_project(root)
+
+    def broken(*a, **k):
+        raise KeyboardInterrupt            # the user pressed Ctrl-C half-way
+    monkeypatch.setattr(S, "dumps", broken)
+    with pytest.raises(KeyboardInterrupt):
+        S.take_snapshot(project, "half")
+    snaps = root / "results" / "snapshots"
+    assert not (snaps / "half").exists()
+    assert [p.name for p in snaps.iterdir() if p.name != ".store"] == []
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.text(min_size=0, max_size=80))
+def test_any_snapshot_name_is_taken_or_refused_in_one_line(name):
+    """Names are refused before anything is written unless they are plain file names."""
+    if S.NAME.match(name):
+        assert S.check_name(name) == name
+        assert "/" not in name and not name.startswith(".") and len(name) <= 64
+    else:
+        with pytest.raises(FigkitError) as exc:
+            S.check_name(name)
+        assert "\n" not in str(exc.value).replace(repr(name), "") and "allowed" in str(exc.value)
+
+
+# ----------------------------------------------------------------------------- end to end
+
+@pytest.fixture(scope="module")
+def versions(built_demo, tmp_path_factory):
+    """The demo built, snapshot 'v1', the surveys regenerated with another seed, rebuilt through
+    Snakemake, snapshot 'v2' of that; and the rows reading surveys.csv."""
+    project = tmp_path_factory.mktemp("versions") / "p"
+    shutil.copytree(built_demo, project, symlinks=True)
+    env_main = lambda *a: main([*a, "--project", str(project)])  # noqa: E731
+    assert env_main("snapshot", "v1") == 0
+    other = tmp_path_factory.mktemp("seed2")
+    subprocess.run([sys.executable, "-m", "figkit.demo", str(other), "--scale", "0.05",
+                    "--seed", "99"], check=True, capture_output=True)
+    shutil.copy(other / "surveys.csv", project / "data" / "surveys.csv")
+    snakemake(project)
+    readers = sorted(json.loads(p.read_text())["id"] for p in (project / "results" / "figures")
+                     .glob("*.json") if json.loads(p.read_text())["inputs"][0]["path"]
+                     == "data/surveys.csv")
+    assert env_main("snapshot", "v2") == 0
+    return project, readers
+
+
+def test_gate_fails_naming_the_changed_figures_and_passes_an_unchanged_snapshot(versions, capsys,
+                                                                                tmp_path):
+    project, readers = versions
+    capsys.readouterr()
+    junit = tmp_path / "gate.xml"
+    assert main(["check", "v1", "--project", str(project), "--junit", str(junit)]) == 1
+    out = capsys.readouterr().out
+    changed = sorted(line.split()[3].rstrip(":") for line in out.splitlines()
+                     if line.startswith("figkit: check: CHANGED"))
+    assert changed == readers and len(readers) == 4        # exactly the figures of surveys.csv
+    root = ET.parse(junit).getroot()
+    (suite,) = root.findall("testsuite")
+    cases = {c.get("name"): c for c in suite.findall("testcase")}
+    assert int(suite.get("tests")) == len(cases) == 12
+    assert int(suite.get("failures")) == len(readers)
+    assert sorted(n for n, c in cases.items() if c.find("failure") is not None) == readers
+    for n in readers:
+        assert cases[n].find("failure").get("message")
+    props = {p.get("name"): p.get("value") for p in suite.find("properties")}
+    assert props["ssim_min"] == "0.99" and props["snapshot"] == "v1"
+    # against the snapshot of this very build: exit 0, every case passes
+    assert main(["check", "v2", "--project", str(project), "--junit", str(junit)]) == 0
+    suite = ET.parse(junit).getroot().find("testsuite")
+    assert suite.get("failures") == "0" and len(suite.findall("testcase")) == 12
+    # bad input: exit 2 with one line
+    assert main(["check", "nope", "--project", str(project)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("figkit: error:") and "v1, v2" in err and "\n" not in err
+
+
+def test_junit_layout_matches_what_pytest_writes(tmp_path):
+    """The element and attribute names CI servers read, as pytest's --junitxml writes them."""
+    (tmp_path / "test_x.py").write_text("def test_ok():\n    pass\n\n"
+                                        "def test_bad():\n    assert 0, 'why'\n")
+    subprocess.run([sys.executable, "-m", "pytest", "-q", "-p", "no:cacheprovider",
+                    f"--junitxml={tmp_path / 'ref.xml'}", str(tmp_path / "test_x.py")],
+                   capture_output=True, cwd=tmp_path)
+    ref = ET.parse(tmp_path / "ref.xml").getroot()
+    from figkit.gate import GateResult, Verdict, junit_xml
+    report = CMP.Report(Path("a"), Path("b"), 0.0)
+    ours = ET.fromstring(junit_xml(GateResult("v1", report, [
+        Verdict("ok", True), Verdict("bad\x1bname", False, ["why \x00 <b>"])])))
+    for root in (ref, ours):
+        suite = root.find("testsuite") if root.tag == "testsuites" else root
+        assert root.tag == "testsuites" and suite.tag == "testsuite"
+        assert {"name", "tests", "failures", "errors", "skipped", "time"} <= set(suite.attrib)
+        cases = suite.findall("testcase")
+        assert len(cases) == 2 and all({"classname", "name", "time"} <= set(c.attrib)
+                                       for c in cases)
+        fails = [c.find("failure") for c in cases if c.find("failure") is not None]
+        assert len(fails) == 1 and "message" in fails[0].attrib
+    bad = [c for c in ours.iter("testcase") if c.find("failure") is not None][0]
+    assert bad.find("failure").get("message") == "why \ufffd <b>"   # XML 1.0 has no NUL
+
+
+def test_compare_by_name_and_snapshots_share_unchanged_files(versions, capsys):
+    project, readers = versions
+    snaps = project / "results" / "snapshots"
+    v1, v2 = json.loads((snaps / "v1" / "manifest.json").read_text()), \
+        json.loads((snaps / "v2" / "manifest.json").read_text())
+    same = [rel for rel in v1["files"] if v2["files"].get(rel, {}).get("sha256")
+            == v1["files"][rel]["sha256"]]
+    assert same and len(same) < len(v1["files"])
+    for rel in same:                         # one file on disk for both (POSIX hard links)
+        assert os.stat(snaps / "v1" / rel).st_ino == os.stat(snaps / "v2" / rel).st_ino
+    objects = [p for p in (snaps / ".store").rglob("*") if p.is_file()]
+    distinct = {r["sha256"] for m in (v1, v2) for r in m["files"].values()}
+    assert len(objects) == len(distinct)
+    # snapshots lists both, and says which data file differs from now
+    capsys.readouterr()
+    assert main(["snapshots", "--project", str(project)]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    v1_line = [ln for ln in lines if ln.startswith("v1 ")][0]
+    v2_line = [ln for ln in lines if ln.startswith("v2 ")][0]
+    assert "data surveys" in v1_line and "readings" not in v1_line
+    assert v2_line.rstrip().endswith("nothing")
+    # compare by name, NEW defaulting to the current build
+    assert main(["compare", "v1", "--project", str(project)]) == 0
+    text = capsys.readouterr().out
+    assert "snapshot 'v1'" in text and "-> current build" in text
+    assert f"{len(readers)} changed" in text and f"{12 - len(readers)} unchanged" in text
+    assert "data data/surveys.csv" in text and "data data/readings.csv" not in text
+
+
+def test_review_page_in_a_headless_browser(versions, tmp_path, capsys):
+    """The review page opened from file:// in Chromium: no console errors, every image loaded,
+    the summary counts equal the comparison's, conclusions listed; a screenshot is kept."""
+    require_browser()
+    project, readers = versions
+    review = tmp_path / "review"
+    assert main(["compare", "v1", "v2", "--project", str(project), "--review", str(review)]) == 0
+    result = json.loads((review / "compare.json").read_text())
+    shot = tmp_path / "review.png"
+    seen = visit(review / "index.html", screenshot=shot,
+                 selectors=("[data-count]", "section.figure h2", "ul.conclusions li",
+                            "script", "link"))
+    assert seen.errors == []
+    assert seen.images and all(i["natural_width"] > 0 for i in seen.images), seen.images
+    counts = {}
+    for text in seen.texts["[data-count]"]:           # "<b>4</b>changed a conclusion"
+        label = text.lstrip("0123456789")
+        counts[label] = int(text[:len(text) - len(label)])
+    assert counts == {"changed a conclusion": result["counts"]["conclusions_changed"],
+                      "changed": result["counts"]["changed"],
+                      "unchanged": result["counts"]["unchanged"],
+                      "added": result["counts"]["added"], "removed": result["counts"]["removed"]}
+    assert result["counts"]["changed"] == len(readers)
+    assert result["counts"]["unchanged"] == 12 - len(readers)
+    headings = [h.split()[0] for h in seen.texts["section.figure h2"]]
+    assert sorted(headings[:len(readers)]) == readers      # changed figures come first
+    assert seen.texts["script"] == [] and seen.texts["link"] == []    # nothing external
+    html = (review / "index.html").read_text()
+    assert "http://" not in html and "https://" not in html
+    assert shot.is_file() and shot.stat().st_size > 10_000
+
+
+def test_hostile_figure_ids_and_notes_stay_text_on_the_review_page(tmp_path):
+    """A caution carrying markup reaches the page as text: no element is made from it."""
+    require_browser()
+    old = {"id": "x", "panels": [{"label": "<b>p</b>", "n": 10}], "cautions": []}
+    new = {"id": "x", "panels": [{"label": "<b>p</b>", "n": 20}],
+           "cautions": ['<img src=x onerror="window.__pwned=1">']}
+    for side, sc in (("old", old), ("new", new)):
+        (tmp_path / side).mkdir()
+        (tmp_path / side / "x.json").write_text(json.dumps(sc))
+    report = CMP.compare_folders(tmp_path / "old", tmp_path / "new")
+    from figkit.review import write_review
+    page = write_review(report, S.Build("old", tmp_path / "old"), S.Build("new", tmp_path / "new"),
+                        tmp_path / "r")
+    seen = visit(page, selectors=("ul.conclusions li", "img", "b"), hooks=("__pwned",))
+    assert seen.hooks["__pwned"] is None and seen.errors == []
+    assert any('onerror="window.__pwned=1"' in t for t in seen.texts["ul.conclusions li"])
+    assert all(t != "p" for t in seen.texts["b"])        # the label's <b> is not an element
