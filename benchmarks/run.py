@@ -711,18 +711,81 @@ def details_table(details: dict) -> list[str]:
     return out
 
 
+COMPARE_BASE = "651f466"      # the commit whose `figkit compare` is case 8's baseline
+
+
+def bench_compare(sz, work, rows, details):
+    """Benchmark 8: `figkit compare` of the 12 demo figures after a data change (the demo data
+    regenerated with another seed, so every figure differs), in fresh processes: today's code
+    writing changes.md and difference images (``--out``, like for like) and the review page
+    (``--review``), against the code of COMPARE_BASE (full-resolution SSIM) on the same folders."""
+    title = "8. compare the 12 demo figures after a data change (every figure differs)"
+    root = demo_project(work / "demo-compare")
+    logs = work / "out"
+    snake = snakemake_exe()
+    old = root / "old-figures"
+    if not old.is_dir():
+        steps = [[sys.executable, "-m", "figkit.demo", str(root / "data")], [snake, "--cores", "2"]]
+        for i, cmd in enumerate(steps):
+            if "error" in run_command(cmd, root, logs / f"compare_build_{i}.log"):
+                rows.append([title, "12 figures", "failed: demo build", "—", "—", "≤ 10 s", "—"])
+                return
+        shutil.copytree(root / "results" / "figures", old)
+        for i, cmd in enumerate([[sys.executable, "-m", "figkit.demo", str(root / "data"),
+                                  "--seed", "7"], [snake, "--cores", "2"]]):
+            run_command(cmd, root, logs / f"compare_rebuild_{i}.log")
+    new = root / "results" / "figures"
+    base_src = work / "compare_base.py"
+    got = subprocess.run(["git", "-C", str(REPO), "show", f"{COMPARE_BASE}:figkit/compare.py"],
+                         capture_output=True, text=True)
+    repeat = sz["repeat"]
+    runs = {}
+    for label, cmd in (("out", [sys.executable, "-m", "figkit", "compare", str(old), str(new),
+                                "--out", str(work / "cmp-out")]),
+                       ("review", [sys.executable, "-m", "figkit", "compare", str(old), str(new),
+                                   "--review", str(work / "cmp-review")])):
+        runs[label] = best_of([run_command(cmd, root, logs / f"compare_{label}.log")
+                               for _ in range(repeat)])
+    if got.returncode == 0:
+        base_src.write_text(got.stdout.replace("from .", "from figkit."), encoding="utf-8")
+        script = (f"import sys; sys.path.insert(0, {str(work)!r}); import compare_base as c; "
+                  f"print(c.compare_folders({str(old)!r}, {str(new)!r}, "
+                  f"out_dir={str(work / 'cmp-base')!r}).summary())")
+        runs["base"] = run_command([sys.executable, "-c", script], root, logs / "compare_base.log")
+    base = runs.get("base")
+    for label, what in (("out", "changes.md + difference images (--out), like for like"),
+                        ("review", "review page (--review: four views per figure)")):
+        r = runs[label]
+        if "error" in r:
+            rows.append([f"{title}: {what}", "12 figures", "failed", "—", "—", "≤ 10 s", "—"])
+            continue
+        ok = base is not None and "error" not in base
+        rows.append([f"{title}: {what}; baseline: the code of {COMPARE_BASE} (--out)",
+                     "12 figures, 600 dpi", fs(r["wall_s"]),
+                     fs(base["wall_s"]) if ok else "not measured (no git history)",
+                     fr(r["wall_s"] / base["wall_s"]) if ok else "—", "≤ 10 s",
+                     met(r["wall_s"] <= 10)])
+        details[f"8 compare {label}"] = {"seconds": r["wall_s"], "cpu_s": r["cpu_s"],
+                                         "child_peak_bytes": r["ru_maxrss_bytes"],
+                                         "note": "fresh process: imports, decoding 24 PNGs"}
+    if base is not None and "error" not in base:
+        details["8 compare baseline"] = {"seconds": base["wall_s"], "cpu_s": base["cpu_s"],
+                                         "child_peak_bytes": base["ru_maxrss_bytes"],
+                                         "note": f"figkit.compare of {COMPARE_BASE}, SSIM at 600 dpi"}
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="small sizes, one run each (smoke test)")
     ap.add_argument("--big", action="store_true", help="also try 1e8 rows (needs ~18 GiB free)")
     ap.add_argument("--profile", action="store_true", help="cProfile slow cases into PROFILE.md")
     ap.add_argument("--keep", metavar="DIR", help="keep (and reuse) generated data in DIR")
-    ap.add_argument("--only", default="1,2,3,4,6,7",
-                    help="comma list of benchmarks (5 runs with 2; A = 6, B = 7)")
+    ap.add_argument("--only", default="1,2,3,4,6,7,8",
+                    help="comma list of benchmarks (5 runs with 2; A = 6, B = 7, C = 8)")
     ap.add_argument("--out", default=str(HERE / "RESULTS.md"), help="where the table goes")
     ns = ap.parse_args(argv)
     sz = QUICK if ns.quick else FULL
-    only = set(ns.only.upper().replace("5", "2").replace("A", "6").replace("B", "7").split(","))
+    only = set(ns.only.upper().replace("5", "2").replace("A", "6").replace("B", "7").replace("C", "8").split(","))
     work = Path(ns.keep) if ns.keep else Path(tempfile.mkdtemp(prefix="figkit-bench-"))
     work.mkdir(parents=True, exist_ok=True)
     t_start = time.perf_counter()
@@ -750,6 +813,9 @@ def main(argv=None) -> int:
         if "7" in only:
             print("7. Parquet streamed ...", flush=True)
             bench_parquet(sz, work, rows, details, data_log, ns.big)
+        if "8" in only:
+            print("8. compare after a data change ...", flush=True)
+            bench_compare(sz, work, rows, details)
         profile_text = profile_report(profiles) if ns.profile else None
     finally:
         if not ns.keep:

@@ -148,8 +148,7 @@ def _cmd_preflight(args) -> int:
 
 def _project_or_none(folder: str):
     """The manuscript folder's project, or None where there is none (plain folders compared)."""
-    from .render import load_project
-    from .sheet import CONFIG_FILE
+    from .sheet import CONFIG_FILE, load_project
     if not (Path(folder) / CONFIG_FILE).is_file():
         return None
     return load_project(folder)
@@ -190,7 +189,7 @@ def _cmd_compare(args) -> int:
 
 
 def _cmd_snapshot(args) -> int:
-    from .render import load_project
+    from .sheet import load_project
     from .snapshot import take_snapshot
     project = load_project(args.project)
     m = take_snapshot(project, args.name, replace=args.replace, note=args.note)
@@ -211,7 +210,7 @@ def _cmd_snapshot(args) -> int:
 
 
 def _cmd_snapshots(args) -> int:
-    from .render import load_project
+    from .sheet import load_project
     from .snapshot import inputs_differ, list_snapshots, project_hashes
     project = load_project(args.project)
     found = list_snapshots(project)
@@ -237,7 +236,7 @@ def _cmd_check(args) -> int:
     """Exit 0 when every figure matches the snapshot within tolerance, 1 when any differs, 2 for
     bad input (an unknown snapshot, a broken sheet)."""
     from .gate import check_against, write_junit
-    from .render import load_project
+    from .sheet import load_project
     from .snapshot import MANIFEST, current_build, list_snapshots, snapshot_build, snapshots_dir
     project = load_project(args.project)
     folder = snapshots_dir(project) / args.name

@@ -21,6 +21,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from .errors import FigkitError
+from .style import REVIEW_DEFAULTS
 
 if TYPE_CHECKING:
     from .snapshot import Build
@@ -316,7 +317,7 @@ class Render:
     full_shape: tuple[int, int]
     image: np.ndarray                 # (H, W, 3) uint8 at ``scale`` of the file's pixels
     scale: float
-    full: np.ndarray | None = None    # the full-resolution pixels, kept only while pairing
+    full: object = None               # the full-resolution image (PIL), kept only while pairing
 
 
 def load_for_compare(path: Path | str, file_dpi: float | None, compare_dpi: float,
@@ -351,7 +352,7 @@ def load_for_compare(path: Path | str, file_dpi: float | None, compare_dpi: floa
                                Image.Resampling.BOX)
     scale = small.width / rgb.width
     return Render(path, dpi, (rgb.height, rgb.width), np.asarray(small), scale,
-                  np.asarray(rgb) if keep_full else None)
+                  rgb if keep_full else None)
 
 
 def on_common_canvas(a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -490,6 +491,14 @@ def _short_hash(h) -> str | None:
     return h[:12] if isinstance(h, str) else h
 
 
+def _panels_appearing(fig: str, op: dict, np_: dict, level: str) -> list[Change]:
+    """Panels (matched by label) in only one of two sidecars' panel indexes."""
+    return ([Change(fig, "panel removed", lb, None, f"n was {_show(op[lb].get('n'))}", level)
+             for lb in op if lb not in np_]
+            + [Change(fig, "panel added", None, lb, f"n = {_show(np_[lb].get('n'))}", level)
+               for lb in np_ if lb not in op])
+
+
 def _panel_index(panels) -> dict:
     out = {}
     for i, p in enumerate(panels or []):
@@ -570,12 +579,7 @@ def compare_sidecars(old: dict, new: dict, *, rel_tol: float = 1e-9) -> list[Cha
             add(f"layout {key}", ol.get(key), nl.get(key))
 
     op, np_ = _panel_index(old.get("panels")), _panel_index(new.get("panels"))
-    for label in op:
-        if label not in np_:
-            add("panel removed", label, None, f"n was {_show(op[label].get('n'))}")
-    for label in np_:
-        if label not in op:
-            add("panel added", None, label, f"n = {_show(np_[label].get('n'))}")
+    changes += _panels_appearing(fig, op, np_, "detail")
     for label in [lb for lb in np_ if lb in op]:
         po, pn = op[label], np_[label]
         for key in ("n", "n_dropped"):
@@ -791,13 +795,13 @@ class Thresholds:
     """What counts as a change of conclusion, and what the regression gate lets through.  The
     defaults and their sources are ``figkit.style.REVIEW_DEFAULTS``; a house style's ``review:``
     block overrides them, and every comparison records the values it used."""
-    share_points: float = 5.0
-    n_percent: float = 10.0
-    p_level: float = 0.05
-    compare_dpi: float = 150.0
-    ssim_min: float = 0.99
-    rms_max: float = 2.0
-    stats_rel_tol: float = 1e-6
+    share_points: float = REVIEW_DEFAULTS["share_points"]
+    n_percent: float = REVIEW_DEFAULTS["n_percent"]
+    p_level: float = REVIEW_DEFAULTS["p_level"]
+    compare_dpi: float = REVIEW_DEFAULTS["compare_dpi"]
+    ssim_min: float = REVIEW_DEFAULTS["ssim_min"]
+    rms_max: float = REVIEW_DEFAULTS["rms_max"]
+    stats_rel_tol: float = REVIEW_DEFAULTS["stats_rel_tol"]
 
     @classmethod
     def from_settings(cls, settings: dict | None) -> "Thresholds":
@@ -873,12 +877,7 @@ def conclusions(old: dict, new: dict, th: Thresholds = Thresholds()) -> list[Cha
     out: list[Change] = []
     add = lambda what, o, n, note="": out.append(Change(fig, what, o, n, note, "conclusion"))  # noqa: E731
     op, np_ = _panel_index(old.get("panels")), _panel_index(new.get("panels"))
-    for label in op:
-        if label not in np_:
-            add("panel removed", label, None, f"n was {_show(op[label].get('n'))}")
-    for label in np_:
-        if label not in op:
-            add("panel added", None, label, f"n = {_show(np_[label].get('n'))}")
+    out += _panels_appearing(fig, op, np_, "conclusion")
     for label in [lb for lb in np_ if lb in op]:
         po, pn = op[label], np_[label]
         at = f"panel '{label}'"
@@ -1175,7 +1174,10 @@ def compare_pixels(fc: FigureComparison, old_png, new_png, *, old_dpi=None, new_
         return
     a = load_for_compare(old_png, old_dpi, th.compare_dpi, keep_full=True)
     b = load_for_compare(new_png, new_dpi, th.compare_dpi, keep_full=True)
-    same = a.full.shape == b.full.shape and np.array_equal(a.full, b.full)
+    # Renders that differ at the comparison resolution differ; only equal reductions need the
+    # full pixels compared (a one-pixel change can round away in the box filter).
+    same = (a.full_shape == b.full_shape and np.array_equal(a.image, b.image)
+            and a.full.tobytes() == b.full.tobytes())
     a.full = b.full = None
     if keep_images:
         fc.images = (a.image, b.image)

@@ -7,7 +7,6 @@ import csv
 import io
 import json
 import logging
-from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -17,31 +16,13 @@ from . import stats
 from .checks import enforce_minimums
 from .data import FigureData, load_figure_data
 from .errors import FigkitError
-from .sheet import Config, SheetRow, check_row, find_row, load_config, read_sheet
+from .sheet import Project, SheetRow, check_row, find_row, load_project  # noqa: F401 (API)
 from .spec import FigureSpec, build_spec, fingerprint
 
 log = logging.getLogger("figkit")
 
 STATS_COLUMNS = ["panel", "group", "n", "n_dropped", "x_mean", "y_mean", "slope", "slope_ci_low",
                  "slope_ci_high", "intercept", "r"]
-
-
-@dataclass
-class Project:
-    config: Config
-    rows: list[SheetRow]
-
-    @property
-    def root(self) -> Path:
-        return self.config.root
-
-    def spec(self, figure_id: str) -> FigureSpec:
-        return build_spec(find_row(self.rows, figure_id), self.config)
-
-
-def load_project(root: Path | str = ".") -> Project:
-    config = load_config(root)
-    return Project(config, read_sheet(config.sheet_path))
 
 
 def spec_from_cells(cells: dict, project: Project | str | Path = ".") -> FigureSpec:

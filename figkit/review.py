@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import html
 import json
+import os
 from pathlib import Path
 
 import numpy as np
@@ -239,7 +240,10 @@ def write_review(report: Report, old, new, folder: Path | str) -> Path:
                   "</li>" for i in report.removed]
         head.append("<nav><ol>" + "".join(items) + "</ol></nav>")
     head.append("</header><main>")
-    body = [_figure_section(fc, img_dir, n) for n, fc in enumerate(changed)]
+    # PNG encoding runs outside the interpreter lock: write the figures' images in threads
+    from concurrent.futures import ThreadPoolExecutor
+    with ThreadPoolExecutor(max_workers=min(4, os.cpu_count() or 1)) as pool:
+        body = list(pool.map(lambda nf: _figure_section(nf[1], img_dir, nf[0]), enumerate(changed)))
     n = len(changed)
     for fid in report.added:
         body.append(_single(fid, new, "added", img_dir, n, th.compare_dpi))

@@ -188,3 +188,25 @@ def find_row(rows: list[SheetRow], figure_id: str) -> SheetRow:
             return row
     raise FigkitError("no such figure in the sheet", figure=figure_id,
                       allowed=[r.id for r in rows] or "no rows yet")
+
+
+@dataclass
+class Project:
+    """A manuscript folder: its settings and its sheet rows (``figkit.render.load_project`` too).
+    Kept here, away from the drawing stages, so commands that only read results (compare,
+    check, snapshot) start without importing pandas or matplotlib."""
+    config: Config
+    rows: list[SheetRow]
+
+    @property
+    def root(self) -> Path:
+        return self.config.root
+
+    def spec(self, figure_id: str):
+        from .spec import build_spec
+        return build_spec(find_row(self.rows, figure_id), self.config)
+
+
+def load_project(root: Path | str = ".") -> Project:
+    config = load_config(root)
+    return Project(config, read_sheet(config.sheet_path))

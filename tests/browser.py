@@ -74,8 +74,8 @@ def visit(page: Path, *, screenshot: Path | None = None, selectors: tuple[str, .
         texts = {sel: driver.execute_script(
             "return Array.from(document.querySelectorAll(arguments[0]))"
             ".map(e => e.textContent)", sel) for sel in selectors}
-        got = {name: driver.execute_script(f"return window[arguments[0]] === undefined ? null "
-                                           f": String(window[arguments[0]])", name)
+        got = {name: driver.execute_script("return window[arguments[0]] === undefined ? null "
+                                           ": String(window[arguments[0]])", name)
                for name in hooks}
         shot = None
         if screenshot is not None:

@@ -36,7 +36,7 @@ from figkit.cli import main
 from figkit.errors import FigkitError
 
 from browser import require_browser, visit
-from conftest import make_demo_data, snakemake
+from conftest import snakemake
 
 ROOT = Path(__file__).resolve().parents[1]
 
