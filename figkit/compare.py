@@ -1021,6 +1021,7 @@ class Report:
     thresholds: Thresholds = field(default_factory=Thresholds)
     data_changes: list[tuple[str, str | None, str | None]] = field(default_factory=list)
     seconds: float = 0.0
+    stale: list[str] = field(default_factory=list)   # current-build figures older than their data
 
     @property
     def changed(self) -> list[FigureComparison]:
@@ -1070,6 +1071,9 @@ class Report:
             lines.append("  added: " + ", ".join(self.added))
         if self.removed:
             lines.append("  removed: " + ", ".join(self.removed))
+        if self.stale:
+            lines.append("figkit: caution: the current build has figures older than their data "
+                         f"files (rebuild first: snakemake --cores 2): {', '.join(self.stale)}")
         if self.markdown_path is not None:
             lines.append(f"figkit: report -> {self.markdown_path}")
         return "\n".join(lines)
@@ -1114,6 +1118,7 @@ class Report:
                 "new": {"label": self.new_label, "folder": str(self.new_dir)},
                 "thresholds": self.thresholds.as_dict(), "tolerance_rms": self.tolerance,
                 "counts": self.counts(), "added": self.added, "removed": self.removed,
+                "older_than_data": self.stale,
                 "data_changes": [{"path": p, "old": a, "new": b} for p, a, b in self.data_changes],
                 "figures": [{"id": f.id, "changed": f.changed, "pixels": f.pixels, "rms": f.rms,
                              "ssim": f.ssim, "size_change": f.size_change,
@@ -1251,6 +1256,12 @@ def compare_builds(old: Build, new: Build, *, thresholds: Thresholds = Threshold
             fid, old, new, old_sc[fid][1], new_sc[fid][1], thresholds, tolerance, rel_tol, keep),
             both))
     report.data_changes = _data_changes(old, new, old_sc, new_sc)
+    for build, sc in ((old, old_sc), (new, new_sc)):
+        if build.current:
+            report.stale += sorted(fid for fid, (_, d) in sc.items()
+                                   if any(build.datasets.get(i.get("path"), i.get("sha256"))
+                                          != i.get("sha256") for i in d.get("inputs") or []
+                                          if isinstance(i, dict)))
     if out is not None:
         from .provenance import atomic_outputs
         for fc in report.figures:

@@ -73,6 +73,9 @@ class GateResult:
                 out.append(f"figkit: check: CHANGED {v.id}: {v.reasons[0]}"
                            + (f" (+{len(v.reasons) - 1} more)" if len(v.reasons) > 1 else ""))
         th = self.report.thresholds
+        if self.report.stale:
+            out.append("figkit: caution: these figures are older than their data files, so the "
+                       "check judged stale files (rebuild first): " + ", ".join(self.report.stale))
         out.append(f"figkit: check: {len(self.verdicts)} figures against snapshot "
                    f"'{self.snapshot}': {len(self.verdicts) - len(self.failed)} match, "
                    f"{len(self.failed)} differ (SSIM >= {th.ssim_min:g}, RMS <= {th.rms_max:g} "

@@ -223,6 +223,9 @@ def write_review(report: Report, old, new, folder: Path | str) -> Path:
                         for p, a, b in report.data_changes) + "</tbody></table>")
     else:
         head.append('<p class="thresholds">No data file changed.</p>')
+    if report.stale:
+        head.append('<p class="conclusions"><b>Caution:</b> the current build has figures older '
+                    "than their data files (rebuild first): " + _e(", ".join(report.stale)) + "</p>")
     head.append(
         f'<p class="thresholds">A conclusion changes when a line trend\'s 95% slope interval '
         f"starts or stops excluding 0 or its slope changes sign, the strata test crosses p = "

@@ -227,13 +227,15 @@ class Build:
     manifest: dict | None = None
     ids: list[str] | None = None     # only these figures (the sheet's rows, for the current build)
     datasets: dict = field(default_factory=dict)   # path -> SHA-256, where known
+    current: bool = False            # the project's live results folder (it may be stale)
 
 
 def current_build(project) -> Build:
     hashes = project_hashes(project)
     return Build("current build", project.config.results / "figures",
                  ids=[row.id for row in project.rows],
-                 datasets={d["path"]: d["sha256"] for d in hashes["datasets"].values()})
+                 datasets={d["path"]: d["sha256"] for d in hashes["datasets"].values()},
+                 current=True)
 
 
 def snapshot_build(folder: Path) -> Build:

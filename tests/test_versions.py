@@ -450,3 +450,74 @@ def test_hostile_figure_ids_and_notes_stay_text_on_the_review_page(tmp_path):
     assert seen.hooks["__pwned"] is None and seen.errors == []
     assert any('onerror="window.__pwned=1"' in t for t in seen.texts["ul.conclusions li"])
     assert all(t != "p" for t in seen.texts["b"])        # the label's <b> is not an element
+
+
+def test_without_hard_links_files_are_copied_and_said_so(tmp_path, monkeypatch):
+    from figkit.render import load_project
+    df = pd.DataFrame({"dose": np.arange(30.0), "growth": np.arange(30.0)})
+    root = _project(tmp_path / "p", [{"id": "h", "dataset": "obs", "chart": "histogram",
+                                       "x": "dose", "size": "single"}], df)
+
+    def no_links(*a, **k):
+        raise OSError(1, "Operation not permitted")       # EPERM, as some file systems say
+    monkeypatch.setattr(S.os, "link", no_links)
+    m = S.take_snapshot(load_project(root), "copied")
+    assert m["stored"]["copied"] == m["stored"]["files"] == 3
+    folder = root / "results" / "snapshots" / "copied"
+    assert {r["stored"] for r in m["files"].values()} == {"copy"}
+    for rel, rec in m["files"].items():
+        assert _file_hash(folder / rel) == rec["sha256"] and os.stat(folder / rel).st_nlink == 1
+
+
+def test_a_stale_current_build_is_named(versions, tmp_path, capsys):
+    """Data edited after the build: compare and check say which figures are older than their
+    data (the check still judges the files as they are)."""
+    project, readers = versions
+    copy = tmp_path / "p"
+    shutil.copytree(project, copy, symlinks=True)
+    path = copy / "data" / "surveys.csv"
+    lines = path.read_text().splitlines(keepends=True)
+    path.write_text("".join(lines + [lines[-1]]))
+    capsys.readouterr()
+    assert main(["compare", "v2", "--project", str(copy)]) == 0
+    out = capsys.readouterr().out
+    assert "older than their data" in out and ", ".join(readers) in out
+    assert main(["check", "v2", "--project", str(copy)]) == 0        # the files still match
+    assert "older than their data" in capsys.readouterr().out
+
+
+def test_thresholds_come_from_the_house_style_and_are_recorded(tmp_path, capsys):
+    """A style whose review: block asks for 7 points: A's +6 points is no longer a conclusion,
+    and the review's compare.json records share_points 7 (the shares are those of the crosstab
+    test above)."""
+    import yaml
+    def frame(counts):
+        recs = [(cat, ans) for cat, (yes, no) in counts.items()
+                for ans, k in (("yes", yes), ("no", no)) for _ in range(k)]
+        return pd.DataFrame(recs, columns=["kind", "answer"])
+    root = tmp_path / "p"
+    (root / "styles").mkdir(parents=True)
+    for f in (ROOT / "figkit" / "styles").iterdir():
+        shutil.copy(f, root / "styles" / f.name)
+    style = yaml.safe_load((root / "styles" / "house.yaml").read_text())
+    style["review"]["share_points"] = 7
+    (root / "styles" / "house.yaml").write_text(yaml.safe_dump(style))
+    rows = [{"id": "s", "dataset": "obs", "chart": "shares", "x": "kind", "colour": "answer",
+             "size": "single"}]
+    from figkit.render import load_project
+    _project(root, rows, frame({"A": (30, 70), "C": (20, 80)}))
+    S.take_snapshot(load_project(root), "v1")
+    _project(root, rows, frame({"A": (36, 64), "C": (28, 72)}))        # +6 and +8 points
+    assert main(["compare", "v1", "--project", str(root), "--review", str(tmp_path / "r")]) == 0
+    result = json.loads((tmp_path / "r" / "compare.json").read_text())
+    assert result["thresholds"]["share_points"] == 7
+    (fig,) = result["figures"]
+    flagged = [c["what"] for c in fig["conclusions"] if "share of" in c["what"]]
+    assert len(flagged) == 1 and flagged[0].endswith("at 'C'")
+    # a bad review setting is one line naming it and what is allowed
+    style["review"]["share_points"] = "lots"
+    (root / "styles" / "house.yaml").write_text(yaml.safe_dump(style))
+    capsys.readouterr()
+    assert main(["compare", "v1", "--project", str(root)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "review.share_points" in err and "from 0 to 100" in err and "\n" not in err
