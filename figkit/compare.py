@@ -1,13 +1,20 @@
 """Comparison stage: what changed in the figures between two builds.
 
-Two folders of built figures (``results/figures``) are paired by figure id.  For each pair the
-sidecars are compared field by field (what a reader of the figure would notice: size, layout,
-panels, counts, fitted statistics, the strata test, inputs, colours, cautions, versions) and the
-PNG renders pixel by pixel (RMS difference and structural similarity).  The result is a
-:class:`Report` that prints a short summary and can be written as a markdown file with one
-difference image per changed render.
+Two builds (snapshots, folders of built figures, or the current build; see
+:mod:`figkit.snapshot`) are paired by figure id.  For each pair:
 
-Only numpy and Pillow are used at run time.
+1. :func:`conclusions` lists the changes that alter what a reader concludes (a line trend's 95%
+   slope interval starting or stopping to exclude 0, the strata test crossing its level, panels,
+   groups or categories appearing or going, groups changing order, shares moving, n moving,
+   cautions appearing or going; thresholds from the house style's ``review:`` block);
+2. :func:`compare_sidecars` lists every other changed number and setting, and the provenance
+   (inputs, versions) that alone never makes a figure "changed";
+3. the PNG renders are compared at the comparison resolution (box-filtered, RMS difference and
+   SSIM; renders of different size on a common canvas, the size change reported).
+
+The result is a :class:`Report` that prints a short summary, writes ``changes.md`` with one
+difference image per changed render, and feeds the review page (:mod:`figkit.review`) and the
+regression gate (:mod:`figkit.gate`).  numpy, Pillow and scipy's ``ndimage`` only.
 """
 from __future__ import annotations
 
@@ -44,6 +51,7 @@ INK_ADDED = (0xD5, 0x5E, 0x00)     # the new render is darker here: something wa
 INK_REMOVED = (0x00, 0x72, 0xB2)   # the new render is lighter here: something went away
 INK_RECOLOURED = (0xCC, 0x79, 0xA7)  # same lightness, different colour
 
+RECOLOUR_STEP = 24      # 0-255: a colour change the overlay marks although lightness stayed
 REPORT_NAME = "changes.md"
 P_THRESHOLD = 0.05       # conventional significance level (common practice), only for a note
 _CHUNK = 1 << 22         # elements per block in the big-image loops (bounded memory)
@@ -378,14 +386,22 @@ def overlay_image(a: np.ndarray, b: np.ndarray) -> np.ndarray:
         out = 255 * (1 - i_old (1 - c_old)) * (1 - i_new (1 - c_new)),  i = 1 - Y / 255
 
     per channel, with Y the BT.601 luma and c the ink colour on the 0-1 scale (a multiply
-    blend of each render tinted with its ink)."""
+    blend of each render tinted with its ink).  Luma alone cannot tell two fills of equal
+    lightness apart (a stacked bar whose boundary moved between orange and sky blue), so
+    pixels whose colour changed by more than ``RECOLOUR_STEP`` in a channel while their luma
+    moved less than that are painted reddish purple, as in :func:`diff_image`."""
     a, b = on_common_canvas(a, b)
-    i_old = 1.0 - _grey(a) / 255.0
-    i_new = 1.0 - _grey(b) / 255.0
+    ya, yb = _grey(a), _grey(b)
+    i_old = 1.0 - ya / 255.0
+    i_new = 1.0 - yb / 255.0
     c_old = np.array(INK_REMOVED, np.float32) / 255.0
     c_new = np.array(INK_ADDED, np.float32) / 255.0
     out = 255.0 * (1 - i_old[..., None] * (1 - c_old)) * (1 - i_new[..., None] * (1 - c_new))
-    return np.clip(out + 0.5, 0, 255).astype(np.uint8)
+    out = np.clip(out + 0.5, 0, 255).astype(np.uint8)
+    hue = ((np.abs(a.astype(np.int16) - b.astype(np.int16)).max(axis=2) > RECOLOUR_STEP)
+           & (np.abs(ya - yb) < RECOLOUR_STEP))
+    out[hue] = INK_RECOLOURED
+    return out
 
 
 # ----------------------------------------------------------------------------- sidecars

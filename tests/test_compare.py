@@ -447,3 +447,26 @@ def test_compare_sidecars_bin_edges_moved_a_little_and_many_tiles():
     assert [c.what.split()[-3] for c in tiles] == [f"c{i}" for i in range(11, 3, -1)]   # "c11 / r"
     (more,) = [c for c in changes if c.what == f"panel '{label}' tiles"]
     assert more.new == "4 more changed"
+
+
+def test_overlay_shows_old_and_new_ink_in_two_colours_and_hue_changes():
+    """Black ink only in the old render -> Okabe & Ito blue #0072B2; only in the new -> vermillion
+    #D55E00; in both -> near black; white stays white (multiply blend, hand arithmetic).  Two
+    fills of equal BT.601 luma (grey 128 and a colour of luma 128) -> reddish purple #CC79A7."""
+    a = np.full((20, 30, 3), 255, np.uint8)
+    b = a.copy()
+    a[2:6, 2:6] = 0
+    b[2:6, 10:14] = 0
+    a[10:14, 2:6] = 0
+    b[10:14, 2:6] = 0
+    a[15:19, 20:25] = 128
+    b[15:19, 20:25] = (200, 100, 59)          # 0.299*200 + 0.587*100 + 0.114*59 = 125.2
+    out = C.overlay_image(a, b)
+    assert (out[2:6, 2:6] == (0x00, 0x72, 0xB2)).all()
+    assert (out[2:6, 10:14] == (0xD5, 0x5E, 0x00)).all()
+    assert (out[10:14, 2:6].astype(int).max() <= round(255 * 0.447 * 0.369) + 1)   # dark
+    assert (out[0, :] == 255).all()
+    assert (out[15:19, 20:25] == (0xCC, 0x79, 0xA7)).all()
+    # renders of different size: laid top-left on a common white canvas
+    wide = np.full((20, 40, 3), 255, np.uint8)
+    assert C.overlay_image(a, wide).shape == (20, 40, 3)
