@@ -193,6 +193,7 @@ def _cmd_snapshot(args) -> int:
     from .snapshot import take_snapshot
     project = load_project(args.project)
     m = take_snapshot(project, args.name, replace=args.replace, note=args.note)
+    _prime_reduced(project, m["name"])
     st = m["stored"]
     print(f"figkit: snapshot '{m['name']}': {len(m['figures'])} figures, {st['files']} files "
           f"({st['new_bytes'] / 2**20:.1f} MiB newly stored, {st['shared_files']} already in "
@@ -207,6 +208,20 @@ def _cmd_snapshot(args) -> int:
         print(f"figkit: caution: {st['copied']} files copied, not linked (no hard links here)",
               file=sys.stderr)
     return 0
+
+
+def _prime_reduced(project, name: str) -> None:
+    """Reduce a new snapshot's renders to the comparison resolution now (in threads), so that
+    every later comparison against it decodes only the other side's renders."""
+    from concurrent.futures import ThreadPoolExecutor
+    from .compare import load_for_compare
+    from .snapshot import snapshot_build, snapshots_dir
+    build = snapshot_build(snapshots_dir(project) / name)
+    dpi = _thresholds(project).compare_dpi
+    pngs = sorted(Path(build.figures).glob("*.png"))
+    with ThreadPoolExecutor(max_workers=min(4, os.cpu_count() or 1)) as pool:
+        list(pool.map(lambda p: load_for_compare(p, None, dpi, cache=build.reduced_cache(p, dpi)),
+                      pngs))
 
 
 def _cmd_snapshots(args) -> int:

@@ -318,49 +318,91 @@ def png_pixel_digest(path: Path | str) -> str | None:
 
 @dataclass
 class Render:
-    """A render loaded for comparison: the full-resolution pixels' digest and shape, and the image
-    box-filtered to the comparison resolution (RGB on white paper)."""
+    """A render loaded for comparison: the file's pixel size and dpi, and the image box-filtered
+    to the comparison resolution (RGB on white paper)."""
     path: Path
     dpi: float
     full_shape: tuple[int, int]
     image: np.ndarray                 # (H, W, 3) uint8 at ``scale`` of the file's pixels
     scale: float
-    full: object = None               # the full-resolution image (PIL), kept only while pairing
+
+
+def _flat_rgb(im):
+    """The decoded image as RGB, transparent parts laid on white paper."""
+    from PIL import Image
+    if im.mode in ("RGBA", "LA", "PA") or (im.mode == "P" and "transparency" in im.info):
+        im = im.convert("RGBA")
+        if im.getchannel("A").getextrema()[0] < 255:
+            paper = Image.new("RGBA", im.size, (255, 255, 255, 255))
+            return Image.alpha_composite(paper, im).convert("RGB")
+    return im.convert("RGB")
+
+
+def _open_image(path: Path, *, full: bool):
+    """(header-only or fully decoded image, its dpi from the file or None); one-line errors."""
+    from PIL import Image, UnidentifiedImageError
+    try:
+        im = Image.open(path)
+        if full:
+            im.load()
+        return im, (im.info.get("dpi") or (None,))[0]
+    except FileNotFoundError:
+        raise FigkitError("image not found", value=str(path)) from None
+    except (UnidentifiedImageError, OSError, ValueError, Image.DecompressionBombError) as exc:
+        raise FigkitError(f"cannot read image {path}: {exc}") from None
 
 
 def load_for_compare(path: Path | str, file_dpi: float | None, compare_dpi: float,
-                     *, keep_full: bool = False) -> Render:
+                     *, cache: Path | None = None) -> Render:
     """Decode a render and reduce it to ``compare_dpi`` by box filtering (each output pixel the
     mean of the input pixels it covers: Pillow's ``reduce`` for a whole factor, else ``resize``
     with its BOX filter).  Transparent parts are laid on white paper first, as in
-    :func:`load_render`.  ``file_dpi`` (the sidecar's) wins over the dpi the file states."""
-    from PIL import Image, UnidentifiedImageError
+    :func:`load_render`.  ``file_dpi`` (the sidecar's) wins over the dpi the file states.
+
+    ``cache``: a file for the reduced image of an unchanging render (a snapshot's files never
+    change, see :mod:`figkit.snapshot`): read when present, written when not; decoding a 600 dpi
+    page is most of a comparison's time."""
+    from PIL import Image
     path = Path(path)
-    try:
-        with Image.open(path) as im:
-            im.load()
-            dpi = float(file_dpi or (im.info.get("dpi") or (compare_dpi,))[0] or compare_dpi)
-            if im.mode == "RGBA" and im.getchannel("A").getextrema()[0] < 255:
-                paper = Image.new("RGBA", im.size, (255, 255, 255, 255))
-                rgb = Image.alpha_composite(paper, im).convert("RGB")
-            else:
-                rgb = im.convert("RGB")
-    except FileNotFoundError:
-        raise FigkitError("image not found", value=str(path)) from None
-    except (UnidentifiedImageError, OSError, ValueError) as exc:
-        raise FigkitError(f"cannot read image {path}: {exc}") from None
+    im, stated = _open_image(path, full=False)
+    dpi = float(file_dpi or stated or compare_dpi)
+    full_shape = (im.height, im.width)
     factor = dpi / compare_dpi
+    if cache is not None and cache.is_file():
+        try:
+            with Image.open(cache) as c:
+                small = np.asarray(c.convert("RGB"))
+            im.close()
+            return Render(path, dpi, full_shape, small, small.shape[1] / full_shape[1])
+        except OSError:
+            pass                                  # a broken cache file: decode again
+    with im:
+        im.load()
+        rgb = _flat_rgb(im)
     small = rgb
     if factor > 1.0001:
         k = round(factor)
-        if abs(factor - k) < 1e-6:
+        if abs(factor - k) < 1e-3:    # PNG keeps whole pixels per metre: 600 dpi reads 599.9988
             small = rgb.reduce(k)
         else:
             small = rgb.resize((max(1, round(rgb.width / factor)), max(1, round(rgb.height / factor))),
                                Image.Resampling.BOX)
-    scale = small.width / rgb.width
-    return Render(path, dpi, (rgb.height, rgb.width), np.asarray(small), scale,
-                  rgb if keep_full else None)
+    if cache is not None:
+        try:
+            cache.parent.mkdir(parents=True, exist_ok=True)
+            tmp = cache.with_name(f".{cache.name}.{os.getpid()}.{id(small)}.part")
+            small.save(tmp, format="PNG", compress_level=1)
+            os.replace(tmp, cache)
+        except OSError:
+            pass                                  # a read-only snapshot folder: no cache
+    return Render(path, dpi, full_shape, np.asarray(small), small.width / rgb.width)
+
+
+def _same_full_pixels(a: Path, b: Path) -> bool:
+    ia, _ = _open_image(a, full=True)
+    ib, _ = _open_image(b, full=True)
+    with ia, ib:
+        return ia.size == ib.size and _flat_rgb(ia).tobytes() == _flat_rgb(ib).tobytes()
 
 
 def on_common_canvas(a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -1177,7 +1219,8 @@ def _png_of(folder: Path, sidecar: dict) -> Path | None:
 
 def compare_pixels(fc: FigureComparison, old_png, new_png, *, old_dpi=None, new_dpi=None,
                    th: Thresholds = Thresholds(), tolerance: float = 0.0,
-                   keep_images: bool = False) -> None:
+                   keep_images: bool = False, old_cache: Path | None = None,
+                   new_cache: Path | None = None) -> None:
     """Fill ``fc``'s pixel verdict.  Equal image data (:func:`png_pixel_digest`) or equal decoded
     pixels are "identical"; otherwise both renders are box-filtered to ``th.compare_dpi``, laid on
     a common canvas when their sizes differ (the size change is reported, the pixels still
@@ -1193,13 +1236,12 @@ def compare_pixels(fc: FigureComparison, old_png, new_png, *, old_dpi=None, new_
     if da is not None and da == db and not keep_images:
         fc.pixels, fc.rms, fc.ssim = "identical", 0.0, 1.0
         return
-    a = load_for_compare(old_png, old_dpi, th.compare_dpi, keep_full=True)
-    b = load_for_compare(new_png, new_dpi, th.compare_dpi, keep_full=True)
+    a = load_for_compare(old_png, old_dpi, th.compare_dpi, cache=old_cache)
+    b = load_for_compare(new_png, new_dpi, th.compare_dpi, cache=new_cache)
     # Renders that differ at the comparison resolution differ; only equal reductions need the
     # full pixels compared (a one-pixel change can round away in the box filter).
     same = (a.full_shape == b.full_shape and np.array_equal(a.image, b.image)
-            and a.full.tobytes() == b.full.tobytes())
-    a.full = b.full = None
+            and _same_full_pixels(old_png, new_png))
     if keep_images:
         fc.images = (a.image, b.image)
     if a.full_shape != b.full_shape:
@@ -1223,9 +1265,11 @@ def _pair(fid: str, old: Build, new: Build, old_sc: dict, new_sc: dict, th: Thre
     said = {c.what for c in concl}
     changes = [c for c in compare_sidecars(old_sc, new_sc, rel_tol=rel_tol) if c.what not in said]
     fc = FigureComparison(fid, changes, concl)
-    compare_pixels(fc, _png_of(old.figures, old_sc), _png_of(new.figures, new_sc),
-                   old_dpi=old_sc.get("dpi"), new_dpi=new_sc.get("dpi"), th=th,
-                   tolerance=tolerance, keep_images=keep_images)
+    old_png, new_png = _png_of(old.figures, old_sc), _png_of(new.figures, new_sc)
+    compare_pixels(fc, old_png, new_png, old_dpi=old_sc.get("dpi"), new_dpi=new_sc.get("dpi"),
+                   th=th, tolerance=tolerance, keep_images=keep_images,
+                   old_cache=old.reduced_cache(old_png, th.compare_dpi),
+                   new_cache=new.reduced_cache(new_png, th.compare_dpi))
     return fc
 
 

@@ -229,6 +229,17 @@ class Build:
     datasets: dict = field(default_factory=dict)   # path -> SHA-256, where known
     current: bool = False            # the project's live results folder (it may be stale)
 
+    def reduced_cache(self, png: Path | None, dpi: float) -> Path | None:
+        """Where a snapshot keeps the comparison-resolution copy of one of its renders (files
+        of a snapshot never change, so the copy stays valid); None for other builds."""
+        if png is None or not self.manifest:
+            return None
+        rec = (self.manifest.get("files") or {}).get(f"figures/{Path(png).name}") or {}
+        digest = rec.get("sha256")
+        if not isinstance(digest, str) or not re.fullmatch(r"[0-9a-f]{64}", digest):
+            return None
+        return Path(self.figures).parent.parent / STORE / "reduced" / f"{digest}.{dpi:g}dpi.png"
+
 
 def current_build(project) -> Build:
     hashes = project_hashes(project)
