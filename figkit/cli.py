@@ -6,6 +6,7 @@
     figkit palettes --out DIR  swatch sheets of every built-in palette under simulated vision
     figkit info FILE           what a figure file says about where it came from
     figkit preflight [ID ...]  re-check written figures against the house style's artwork rules
+    figkit draft [ID ...]      keep redrawing figures as their row, settings, style or data change
     figkit snapshot NAME       record the current build as snapshot NAME
     figkit snapshots           list the snapshots
     figkit compare OLD [NEW]   what changed between two builds (snapshots or folders)
@@ -224,6 +225,11 @@ def _prime_reduced(project, name: str) -> None:
                       pngs))
 
 
+def _cmd_draft(args) -> int:
+    from .draft import main_loop
+    return main_loop(Path(args.project), args.ids or None, args.interval, not args.previews_only)
+
+
 def _cmd_snapshots(args) -> int:
     from .sheet import load_project
     from .snapshot import inputs_differ, list_snapshots, project_hashes
@@ -372,6 +378,19 @@ def build_parser() -> argparse.ArgumentParser:
     pf.add_argument("--project", default=".", help="manuscript folder (default: here)")
     pf.add_argument("--strict", action="store_true", help="judge colour separability too (a failing check, not a warning)")
     pf.set_defaults(func=_cmd_preflight)
+    dr = sub.add_parser("draft", help="keep redrawing figures as you edit sheet, settings, styles or data",
+                        description="A warm loop for designing figures: re-renders only the "
+                        "figures whose row, settings, style or data changed, a quick preview "
+                        "first, then the print files; open results/draft/index.html (it reloads "
+                        "itself). Ctrl-C stops.",
+                        epilog="example: figkit draft oxygen-temperature")
+    dr.add_argument("ids", nargs="*", metavar="ID", help="figure ids (default: every row)")
+    dr.add_argument("--interval", type=float, default=0.5, metavar="S",
+                    help="seconds between looks at the files (default 0.5)")
+    dr.add_argument("--previews-only", action="store_true", dest="previews_only",
+                    help="draw previews only, no print files")
+    dr.add_argument("--project", default=".", help="manuscript folder (default: here)")
+    dr.set_defaults(func=_cmd_draft)
     sn = sub.add_parser("snapshot", help="record the current build under results/snapshots/NAME",
                         description="Record every built figure of the sheet (figure files, "
                         "sidecars, stats files) and the SHA-256 of sheet, settings, styles and "
