@@ -200,6 +200,7 @@ class FigureData:
     streamed: dict | None = None  # set when the data were read chunk by chunk
     present: dict = field(default_factory=dict)   # colour field -> values kept by the filter
     notes: list = field(default_factory=list)     # cautions about the data (orders lists, ...)
+    missing: dict = field(default_factory=dict)   # field -> rows of the panels missing it
 
 
 def _factorized(values: pd.Series, fld: str, spec: FigureSpec) -> tuple[np.ndarray, list]:
@@ -358,6 +359,8 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
         grid_levels = (rlev, clev)
     k = len(keys_list)
     ordered, bounds, dropped = split_rows(frame, codes, k, used)
+    # Which fields the dropped rows miss, with a count each (only when some are dropped).
+    missing = {f: int(frame[f].isna().sum()) for f in used} if dropped.any() else {}
     for i in range(k):
         panels.append(Panel(labels[i], {f: _json_value(v) for f, v in keys_list[i].items()},
                             ordered.iloc[bounds[i]:bounds[i + 1]], int(dropped[i]),
@@ -367,6 +370,7 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
                       n_unassigned, grid_levels)
     data.present = present
     data.notes = notes
+    data.missing = {f: n for f, n in missing.items() if n}
     return data
 
 
@@ -511,7 +515,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
         rl, cl = order(strata[0]), order(strata[1])
         keys_list = [{strata[0]: r, strata[1]: c} for r in rl for c in cl]
         cells = [(i, j) for i in range(len(rl)) for j in range(len(cl))]
-    grid = edges = None
+    grid = edges = bin_info = None
     if spec.chart.name == "hexbins":
         from .aggregate import padded_range
         xl, yl = padded_range(lo[spec.x], hi[spec.x]), padded_range(lo[spec.y], hi[spec.y])
@@ -526,12 +530,13 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
         k = max(1, int(np.ceil((hi[spec.x] - lo[spec.x]) / (width_edges[1] - width_edges[0]) - 1e-9)))
         edges = np.linspace(lo[spec.x], hi[spec.x], k + 1) if isinstance(rule, str) else \
             np.linspace(lo[spec.x], hi[spec.x], rule + 1)
-        if isinstance(rule, str):
-            edges = stats.align_edges(edges, stats.data_resolution(pooled))
+        edges, bin_info = stats.bin_layout(edges, rule, stats.data_resolution(pooled),
+                                           spec.options.get("edges", "aligned") == "exact")
 
     # Pass 2: tallies.
     tallies = {tuple(k.get(f) for f in strata): PanelTally() for k in keys_list}
     n_unassigned = 0
+    missing: dict = {}
     for chunk, _ in _prepared_chunks(spec):
         if strata:
             has = chunk[strata].notna().all(axis=1)
@@ -545,6 +550,9 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
             tally = tallies[tuple(_json_value(k) for k in key)] if strata else tallies[()]
             complete = part[used].notna().all(axis=1)
             tally.n_dropped += int((~complete).sum())
+            if not complete.all():
+                for f in used:
+                    missing[f] = missing.get(f, 0) + int(part[f].isna().sum())
             part = part.loc[complete]
             x = part[spec.x].to_numpy(dtype=float)
             y = part[spec.y].to_numpy(dtype=float) if spec.y else None
@@ -561,10 +569,11 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     grid_levels = (order(strata[0]), order(strata[1])) if len(strata) == 2 else ()
     data = FigureData(panels, [input_record(path, rel_to or spec.root)], n_read, n_kept, {},
                       n_unassigned, grid_levels)
+    data.missing = {f: n for f, n in missing.items() if n}
     data.notes = [n for f in ordered for n in order_notes(f, spec.orders[f], sorted(whole[f], key=natural_key))]
     data.notes += filter_notes(spec, lambda col: None if col in numeric else whole.get(col))
     data.streamed = {"chunk_rows": CHUNK_ROWS, "hex_grid": None if grid is None else
                      [grid.xmin, grid.xmax, grid.ymin, grid.ymax, grid.nx],
-                     "bin_edges": None if edges is None else edges.tolist(),
+                     "bin_edges": None if edges is None else edges.tolist(), "bin_info": bin_info,
                      "sample_rows": int(sum(len(s) for s in sample)) if sample else None}
     return data

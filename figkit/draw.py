@@ -923,6 +923,7 @@ class _Assembly:
         }
         if "edges" in ctx.shared:
             record["bin_edges"] = [float(e) for e in ctx.shared["edges"]]
+            record["bins"] = dict(ctx.shared["bin_info"])
         return record
 
 
