@@ -284,6 +284,7 @@ def _render(project: Project, row: SheetRow) -> dict:
         record = {
             "id": spec.id,
             "size_mm": drawn["size_mm"],
+            "size_preset": spec.size_preset,   # which preset, and from where (row or a default)
             "dpi": spec.style.dpi,
             "files": {fmt: f"{spec.id}.{fmt}" for fmt in spec.formats},
             "inputs": data.inputs,

@@ -89,6 +89,10 @@ def validate_config(data: dict, root: Path | str = ".") -> Config:
     full.update(copy.deepcopy(data))
     # The project's house style is checked once here, not once per figure row that uses it (a
     # row's own 'style' cell is checked with that row).
+    if full.get("default_size") is not None and full.get("sizes") and \
+            full["default_size"] not in full["sizes"]:
+        raise FigkitError("config.yaml: 'default_size' is not one of the project's sizes:",
+                          field="default_size", value=full["default_size"], allowed=sorted(full["sizes"]))
     styles = Path(root) / full["styles_dir"]
     if styles.is_dir() and not (styles / f"{full['style']}.yaml").is_file():
         raise FigkitError("config.yaml: 'style' names an unknown house style", value=full["style"],
@@ -117,6 +121,7 @@ class SheetRow:
     number: int
     cells: dict
     error: FigkitError | None = field(default=None)
+    given: frozenset = field(default=frozenset())   # columns the row filled (not schema defaults)
 
     @property
     def id(self) -> str:
@@ -129,7 +134,7 @@ def check_row(number: int, cells: dict) -> SheetRow:
     errors = sorted(jsonschema.Draft202012Validator(sch).iter_errors(cells), key=lambda e: list(e.path))
     full = _defaults(sch)
     full.update(cells)
-    row = SheetRow(number, full)
+    row = SheetRow(number, full, given=frozenset(cells))
     if errors:
         msg, fld, value, allowed = _schema_message(errors[0], sch)
         row.error = FigkitError(msg, row=number, figure=cells.get("id"), field=fld, value=value,
