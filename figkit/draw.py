@@ -24,6 +24,7 @@ from .style import mm_to_in, pt_to_mm
 HEADER_RULE = "#9AA1A9"
 ELLIPSIS = "…"
 EDGE_MM = 0.3          # nothing is drawn closer than this to the canvas edge
+TEXT_EDGE_MM = 0.6     # a text's box keeps this from the canvas edge (its glyphs a bit more)
 LABEL_GAP_MM = 0.8     # clear space between neighbouring level labels read side by side (common practice)
 TILT_DEG = 35          # first remedy for crowded category labels (common practice)
 WRAP_CHARS = 16        # upright category labels longer than this go on two lines (common practice)
@@ -151,6 +152,20 @@ def _right_overhang(fig, axes, grid: L.Grid) -> float:
         right = ax.get_position().x1 * fig.bbox.width
         for t in _drawn_tick_labels(ax.xaxis, renderer):
             worst = max(worst, _mm(fig, t.get_window_extent(renderer).x1 - right))
+    return worst
+
+
+def _top_overhang(fig, axes, grid: L.Grid) -> float:
+    """How far (mm) y tick labels of the first panel row reach above its top edge (a label at
+    the top of the range, as 100% of a shares chart, is centred on that edge)."""
+    renderer = fig.canvas.get_renderer()
+    worst = 0.0
+    for i, ax in enumerate(axes):
+        if i >= grid.cols:
+            break
+        top = ax.get_position().y1 * fig.bbox.height
+        for t in _drawn_tick_labels(ax.yaxis, renderer):
+            worst = max(worst, _mm(fig, t.get_window_extent(renderer).y1 - top))
     return worst
 
 
@@ -644,6 +659,10 @@ class _Assembly:
                 over = _right_overhang(fig, axes, self.grid)
                 if over + EDGE_MM > mm.right:
                     mm = replace(mm, right=over + EDGE_MM)
+                # ... and y labels of the first row above it: they keep clear of the top edge.
+                over = _top_overhang(fig, axes, self.grid) + TEXT_EDGE_MM
+                if over > mm.top + mm.title:
+                    mm = replace(mm, top=over - mm.title)
             g = self.choose_grid(mm)
             now = (g.rows, g.cols, tuple(round(v, 2) for v in vars(mm).values()))
             self.place(g, mm)
