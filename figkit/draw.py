@@ -433,6 +433,15 @@ def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
     job.draw_panels()
     job.prepare_texts()
     job.relayout()
+    if not job.measured_at_final_size():
+        # The overplotting choice changes at the final panel size: draw again, measured there.
+        final = (job.grid.panel_w, job.grid.panel_h)
+        job = _Assembly(spec, data, note, panel_mm=final)
+        job.make_figure(job.plan_grid())
+        job.draw_panels()
+        job.prepare_texts()
+        job.relayout()
+        job.measured_at_final_size(redraw=False)
     job.place_key()
     job.draw_panel_titles()
     job.draw_grid_headers()
@@ -447,8 +456,10 @@ class _Assembly:
     given to panel and axis titles, the category label arrangement, the key's place).  Each
     public method is one step of :func:`build_figure`, in the order it calls them."""
 
-    def __init__(self, spec: FigureSpec, data: FigureData, note: str | None):
+    def __init__(self, spec: FigureSpec, data: FigureData, note: str | None,
+                 panel_mm: tuple[float, float] | None = None):
         st = spec.style
+        self.panel_hint = panel_mm    # the panel size to measure overplotting at, when known
         self.spec, self.data, self.note, self.st = spec, data, note, st
         self.panels = data.panels
         self.n = len(self.panels)
@@ -536,7 +547,7 @@ class _Assembly:
         self.in_cell = self.key is not None and grid.empty_cells > 0 and not spec.grid
         if self.key is not None and not self.in_cell:
             grid = self.choose_grid(self.margins(self.legend_w))
-        ctx.panel_mm = (grid.panel_w, grid.panel_h)
+        ctx.panel_mm = self.panel_hint or (grid.panel_w, grid.panel_h)
         self.drawer.prepare(ctx)
         if spec.chart.name == "scatter" and ctx.shared.get("mode") == "bins" and self.key is None:
             self.key = "bar"
@@ -544,7 +555,7 @@ class _Assembly:
             self.in_cell = grid.empty_cells > 0 and not spec.grid
             if not self.in_cell:
                 grid = self.choose_grid(self.margins(self.legend_w))
-                ctx.panel_mm = (grid.panel_w, grid.panel_h)
+                ctx.panel_mm = self.panel_hint or (grid.panel_w, grid.panel_h)
         self.legend_room = 0.0 if self.in_cell or self.key is None else self.legend_w
         return grid
 
@@ -718,6 +729,32 @@ class _Assembly:
                 self.set_category_labels(self.label_step)
                 return True
         return False
+
+    def measured_at_final_size(self, redraw: bool = True) -> bool:
+        """Overplotting (scatter) is measured at the panel size the layout settled on.  When
+        the grid was chosen again after the first measure, measure once more at the final size:
+        the same choice of drawing only updates the recorded numbers; another choice returns
+        False (with ``redraw``), and the figure is drawn again at that size."""
+        ctx, spec = self.ctx, self.spec
+        if spec.chart.name != "scatter":
+            return True
+        final = (self.grid.panel_w, self.grid.panel_h)
+        if ctx.panel_mm == final:
+            return True
+        from dataclasses import replace as _replace
+        from .charts import prepare_scatter
+        probe = _replace(ctx, panel_mm=final, shared={}, cautions=[], mappables=[], used_colours=[])
+        prepare_scatter(probe)
+        new = probe.shared
+        if redraw and (new["mode"], new["alpha"]) != (ctx.shared["mode"], ctx.shared["alpha"]):
+            return False
+        ctx.panel_mm = final
+        ctx.shared.update(cells=new["cells"], densest=new["densest"])
+        for panel, rec in zip(self.panels, self.records):
+            if "max_per_cell" in rec:
+                rec.update(max_per_cell=new["own_densest"].get(id(panel), 0),
+                           figure_max_per_cell=new["densest"], cells=list(new["cells"]))
+        return True
 
     # ------------------------------------------------------------------ the key
 
