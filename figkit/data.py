@@ -218,25 +218,48 @@ def _json_value(v):
     return v
 
 
+def _text_in_numbers(frame: pd.DataFrame, field: str) -> pd.Series | None:
+    """Cells of a numeric field that hold text; None when the column is numeric.  An empty
+    result for a text column means numbers kept as text (a Parquet string column)."""
+    s = frame[field]
+    if pd.api.types.is_numeric_dtype(s):
+        return None
+    return s[pd.to_numeric(s, errors="coerce").isna() & s.notna()]
+
+
+def _stored_as_text(spec: FigureSpec, field: str, role: str, dtype):
+    return spec.err(f"{role} field '{field}' must be numeric for chart '{spec.chart.name}'",
+                    field=role, value=f"{field} is stored as text ({dtype})",
+                    allowed="a numeric column: store these values as numbers")
+
+
+def _text_error(spec: FigureSpec, field: str, role: str, n_bad: int, examples: list,
+                first_pos: int | None):
+    """The one-line error for text in a numeric field: how many rows, a few values, the first."""
+    sample = ", ".join(repr(v) for v in examples[:3])
+    # Frames keep each row's position in the file (0 = the first data row; see read_dataset
+    # and iter_chunks), so the first bad value can be found: a spreadsheet shows a CSV's
+    # header as row 1; a Parquet file has no header row.
+    where = "" if first_pos is None else (
+        f", first in data row {first_pos + 1}" if _reader(spec.data_path) == "parquet"
+        else f", first at row {first_pos + 2} of the file (header = row 1)")
+    return spec.err(f"{role} field '{field}' must be numeric for chart '{spec.chart.name}'",
+                    field=role, value=f"{field} holds text in {n_bad} rows such as {sample}{where}",
+                    allowed="a numeric column (decimal point, not comma; empty cells for missing)")
+
+
+def _first_pos(bad: pd.Series) -> int | None:
+    return int(bad.index[0]) if len(bad) and pd.api.types.is_integer_dtype(bad.index) else None
+
+
 def _check_kind(frame: pd.DataFrame, field: str, need: str, spec: FigureSpec, role: str) -> None:
     s = frame[field]
-    if need == NUMERIC and not pd.api.types.is_numeric_dtype(s):
-        bad = s[pd.to_numeric(s, errors="coerce").isna() & s.notna()]
-        if not len(bad):       # numbers kept as text (a Parquet string column)
-            raise spec.err(f"{role} field '{field}' must be numeric for chart '{spec.chart.name}'",
-                           field=role, value=f"{field} is stored as text ({s.dtype})",
-                           allowed="a numeric column: store these values as numbers")
-        sample = ", ".join(repr(v) for v in pd.unique(bad)[:3])
-        # Frames keep each row's position in the file (0 = the first data row; see read_dataset
-        # and iter_chunks), so the first bad value can be found: a spreadsheet shows a CSV's
-        # header as row 1; a Parquet file has no header row.
-        pos = int(bad.index[0]) if pd.api.types.is_integer_dtype(bad.index) else None
-        where = "" if pos is None else (
-            f", first in data row {pos + 1}" if _reader(spec.data_path) == "parquet"
-            else f", first at row {pos + 2} of the file (header = row 1)")
-        raise spec.err(f"{role} field '{field}' must be numeric for chart '{spec.chart.name}'",
-                       field=role, value=f"{field} holds text in {len(bad)} rows such as {sample}{where}",
-                       allowed="a numeric column (decimal point, not comma; empty cells for missing)")
+    if need == NUMERIC:
+        bad = _text_in_numbers(frame, field)
+        if bad is not None and len(bad):
+            raise _text_error(spec, field, role, len(bad), list(pd.unique(bad)[:3]), _first_pos(bad))
+        if bad is not None:
+            raise _stored_as_text(spec, field, role, s.dtype)
     if need == CATEGORY and pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
         distinct = s.nunique()
         if distinct > 50:
@@ -394,8 +417,10 @@ def should_stream(spec: FigureSpec, limit_bytes: int | None = None) -> bool:
     return spec.data_path.is_file() and spec.data_path.stat().st_size > limit
 
 
-def iter_chunks(path: Path, columns: list[str], rows: int = CHUNK_ROWS):
-    """DataFrames of at most ``rows`` rows holding only ``columns``."""
+def iter_chunks(path: Path, columns: list[str], rows: int | None = None):
+    """DataFrames of at most ``rows`` rows (default: CHUNK_ROWS, read at call time) holding
+    only ``columns``."""
+    rows = rows or CHUNK_ROWS
     kind = _reader(path)
     if kind == "parquet":
         try:
@@ -480,6 +505,8 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
                 numeric.add(f)          # numbers: a text filter value is not judged (as in memory)
             if f in ordered or f not in numeric:   # no set of every number: memory stays bounded
                 whole[f].update(chunk[f].dropna().unique().tolist())
+    texts: dict = {}     # role -> text cells in a numeric field, counted over every chunk
+    as_text: dict = {}   # role -> dtype of a numeric field stored as text (numbers only)
     step, done = _progress_printer(path)
     for chunk, read in _prepared_chunks(spec, step, collect):
         n_read += read
@@ -487,8 +514,21 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
         if len(chunk):   # every chunk: a bad value may sit anywhere in a big file
             for role, need in (("x", spec.chart.x), ("y", spec.chart.y)):
                 fld = getattr(spec, role)
-                if fld and need:
+                if fld and need == CATEGORY:
                     _check_kind(chunk, fld, need, spec, role)
+                elif fld and need == NUMERIC:   # text is counted over every chunk, then reported
+                    bad = _text_in_numbers(chunk, fld)
+                    if bad is not None and not len(bad):
+                        as_text.setdefault(role, chunk[fld].dtype)   # said if nothing worse
+                    elif bad is not None:
+                        t = texts.setdefault(role, {"n": 0, "examples": [], "first": None})
+                        t["n"] += len(bad)
+                        t["first"] = _first_pos(bad) if t["first"] is None else t["first"]
+                        for v in pd.unique(bad):
+                            if len(t["examples"]) < 3 and v not in t["examples"]:
+                                t["examples"].append(v)
+        if texts or as_text:
+            continue     # the numbers of this file are not read: the error follows the pass
         for f in used:
             v = chunk[f].to_numpy(dtype=float)
             if np.isfinite(v).any():
@@ -499,6 +539,10 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
         if spec.chart.name == "histogram" and len(chunk):
             keep = rng.random(len(chunk)) < min(1.0, SAMPLE_ROWS / max(len(chunk), 1))
             sample.append(chunk.loc[keep, spec.x].dropna().to_numpy(dtype=float))
+    for role, t in texts.items():
+        raise _text_error(spec, getattr(spec, role), role, t["n"], t["examples"], t["first"])
+    for role, dtype in as_text.items():
+        raise _stored_as_text(spec, getattr(spec, role), role, dtype)
     if n_kept == 0:
         raise spec.err("no rows left after the filter", field="filter",
                        value=spec.filter.text if spec.filter is not None else None,

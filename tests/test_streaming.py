@@ -187,3 +187,34 @@ def test_streamed_and_in_memory_name_the_same_filter_typo(tmp_path, monkeypatch)
     whole, streamed = _both_paths(spec, monkeypatch)
     assert whole.notes == streamed.notes and len(whole.notes) == 1
     assert "'sout'" in whole.notes[0] and "did you mean 'south'" in whole.notes[0]
+
+
+@pytest.mark.parametrize("fmt", ["csv", "parquet"])
+def test_text_rows_are_counted_in_every_chunk(tmp_path, monkeypatch, fmt):
+    """'holds text in N rows' counts every bad cell of the file, on the streamed path too, where
+    they sit in three different chunks; N is checked against pandas.to_numeric(errors='coerce')
+    on the whole column."""
+    if fmt == "parquet":
+        pytest.importorskip("pyarrow")
+    from figkit.errors import FigkitError
+    rng = np.random.default_rng(7)
+    n = 20_000
+    df = pd.DataFrame({"x": rng.normal(0, 1, n).round(3).astype(str), "y": rng.normal(0, 1, n)})
+    df.loc[[1_000, 1_001, 9_500, 18_000], "x"] = ["1,5", "abc", "2,5", "1,5"]
+    expect = int(pd.to_numeric(df["x"], errors="coerce").isna().sum())   # pandas: 4
+    (tmp_path / "data").mkdir()
+    name = f"data/t.{fmt}"
+    if fmt == "parquet":
+        df.to_parquet(tmp_path / name, row_group_size=4000)
+    else:
+        df.to_csv(tmp_path / name, index=False)
+    shutil.copytree(REPO / "figkit" / "styles", tmp_path / "styles")
+    spec = _spec(tmp_path, name, chart="histogram", x="x")
+    monkeypatch.setattr(D, "CHUNK_ROWS", 7_000)
+    texts = []
+    for limit in (10 ** 12, 0):          # in memory, then streamed in 3 chunks
+        with pytest.raises(FigkitError) as err:
+            D.load_figure_data(spec, stream_above_bytes=limit)
+        texts.append(str(err.value))
+        assert f"holds text in {expect} rows" in texts[-1], texts[-1]
+    assert texts[0] == texts[1]
