@@ -1,0 +1,54 @@
+"""The workflow's stop of Snakemake's rate-limit timer relies on a private Snakemake name, so it
+must degrade to doing nothing when that name changes or looks different.  Reference: the Python
+standard library's threading.Timer (a cancelled timer never calls its function; Timer.finished
+is set by cancel())."""
+from __future__ import annotations
+
+import threading
+
+from figkit.workflow import RATE_TIMER_NAME, stop_rate_timers
+
+
+class _Odd:
+    """A callable whose __qualname__ is not text (as a wrapped callable's may be)."""
+
+    def __init__(self):
+        self.__qualname__ = None
+
+    def __call__(self):
+        pass
+
+
+def _timer(fn) -> threading.Timer:
+    t = threading.Timer(30.0, fn)
+    t.daemon = True
+    t.start()
+    return t
+
+
+def test_stops_only_the_named_timer():
+    def named():
+        pass
+    named.__qualname__ = f"Scheduler.{RATE_TIMER_NAME}"
+
+    def other():
+        pass
+    ours, theirs = _timer(named), _timer(other)
+    try:
+        assert stop_rate_timers() == 1
+        assert ours.finished.is_set() and not theirs.finished.is_set()
+    finally:
+        theirs.cancel()
+
+
+def test_no_op_when_the_private_name_is_missing_or_odd():
+    def renamed():
+        pass
+    renamed.__qualname__ = "Scheduler.some_future_name"
+    timers = [_timer(renamed), _timer(_Odd())]
+    try:
+        assert stop_rate_timers() == 0          # nothing raised, nothing stopped
+        assert not any(t.finished.is_set() for t in timers)
+    finally:
+        for t in timers:
+            t.cancel()
