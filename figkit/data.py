@@ -304,8 +304,11 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     if should_stream(spec, stream_above_bytes):
         return stream_figure_data(spec, rel_to)
     check_columns(spec, read_columns(path))
+    from . import progress
+    progress.stage(f"reading {path.name}")
     frame = read_dataset(path, spec.columns_needed())
     n_read = len(frame)
+    progress.stage(f"read {n_read:,} rows of {path.name}; splitting into panels")
     for banding in spec.bandings:
         frame[banding.name] = apply_banding(frame[banding.source], banding)
     ordered = _ordered_fields(spec)
@@ -461,19 +464,20 @@ def _prepared_chunks(spec: FigureSpec, progress=None, raw=None):
 
 
 def _progress_printer(path: Path):
-    """A one-line progress count on a terminal only (never in logs or CI output)."""
-    import sys
-    if not sys.stderr.isatty():
-        return None, lambda: None
+    """A row count on the job's progress line (figkit.progress: on a terminal only, never in
+    logs or CI output); outside a figure job, a line of its own."""
+    from . import progress
+    own = progress.current() is None
+    line = progress.Progress(None) if own else progress.current()
     total = [0]
 
     def step(rows):
         total[0] += rows
-        sys.stderr.write(f"\rfigkit: reading {path.name}: {total[0]:,} rows")
-        sys.stderr.flush()
+        line.stage(f"reading {path.name}: {total[0]:,} rows")
 
     def done():
-        sys.stderr.write("\n")
+        if own:
+            line.close()
     return step, done
 
 

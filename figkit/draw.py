@@ -424,13 +424,23 @@ def _pin_ticks(fig) -> None:
 
 # ---------------------------------------------------------------------------- the figure
 
+_PREPARING = {"histogram": "binning", "hexbins": "binning", "scatter": "measuring overlap",
+              "density": "estimating densities", "violin": "estimating densities",
+              "box": "computing box statistics", "count-bars": "counting", "shares": "counting",
+              "tiles": "counting"}
+
+
 def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
     """Draw the figure; returns (figure, record) where record holds layout and per-panel numbers.
     ``note`` is one line of small print under the x title (the strata comparison, when the house
     style asks for it)."""
+    from . import progress
+    progress.stage(_PREPARING.get(spec.chart.name, "preparing"))
     job = _Assembly(spec, data, note)
     job.make_figure(job.plan_grid())
+    progress.stage(f"drawing {len(data.panels)} panel{'' if len(data.panels) == 1 else 's'}")
     job.draw_panels()
+    progress.stage("laying out")
     job.prepare_texts()
     job.relayout()
     if not job.measured_at_final_size():

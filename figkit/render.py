@@ -213,9 +213,11 @@ def rebuild_command(spec: FigureSpec, results: str) -> str:
 def render(project: Project, figure_id: str) -> dict:
     """Build one figure's files and sidecar under ``results/figures``; return the sidecar.
     Every mistake found on the way names the sheet row and the figure."""
+    from . import progress
     row = find_row(project.rows, figure_id)
     try:
-        return _render(project, row)
+        with progress.job(figure_id):
+            return _render(project, row)
     except FigkitError as exc:
         raise exc.at(row=row.number, figure=figure_id) from None
 
@@ -223,6 +225,7 @@ def render(project: Project, figure_id: str) -> dict:
 def _render(project: Project, row: SheetRow) -> dict:
     import matplotlib as mpl
     mpl.use("Agg", force=True)
+    from . import progress
     from .draw import build_figure
 
     spec = build_spec(row, project.config)
@@ -233,6 +236,7 @@ def _render(project: Project, row: SheetRow) -> dict:
     strata = strata_comparison(spec, data)
     with mpl.rc_context(spec.style.rc):
         fig, drawn = build_figure(spec, data, strata_note(strata) if spec.style.strata_note else None)
+        progress.stage("checking text and line sizes")
         sizes = enforce_minimums(fig, spec.style.min_text_pt, spec.style.min_line_pt,
                                  figure=spec.id, row=spec.row)
         stat_lines = panel_statistics(spec, data)
@@ -328,7 +332,9 @@ def _render(project: Project, row: SheetRow) -> dict:
                     out_dir / f"{spec.id}.json"]
         with P.atomic_outputs(targets) as temps:
             for fmt, tmp in zip(spec.formats, temps):
+                progress.stage(f"writing {fmt.upper()}")
                 _save(fig, tmp, fmt, spec, meta)
+            progress.stage("preflight: reading the files back")
             # Preflight reads the files just written (still under their temporary names); in a
             # strict house style a failure aborts here and nothing is renamed into place.
             from .preflight import preflight
@@ -344,6 +350,7 @@ def _render(project: Project, row: SheetRow) -> dict:
                     f"{c['name']} ({c['message']})" for c in failed))
             for c in failed:
                 log.warning("%s: preflight: %s: %s", spec.id, c["name"], c["message"])
+            progress.stage("writing the sidecar and tables")
             temps[-3].write_text(_values_csv(drawn_values(spec, panels, record.get("bin_edges"))),
                                  encoding="utf-8")
             temps[-2].write_text(_stats_csv(stat_lines), encoding="utf-8")
