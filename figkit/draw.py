@@ -873,19 +873,25 @@ class _Assembly:
     def _fy(self, mm: float) -> float:
         return mm / self.height
 
+    def framed(self) -> bool:
+        """The house style draws a frame round each panel (its top and right edges visible)."""
+        return bool(self.axes) and all(self.axes[0].spines[k].get_visible() for k in ("top", "right"))
+
     def draw_panel_titles(self) -> None:
         """Panel titles, fitted, in our own look: left-aligned over a hairline rule."""
         st, fx, fy = self.st, self._fx, self._fy
         self.shown_titles = []
         if not self.titles:
             return
+        framed = self.framed()
         for i, text in enumerate(self.title_texts):
             l, b, w, h = L.panel_box(self.grid, i, self.margin, self.height)
             fitted = _fit_text(self.bold, text, w, self.title_lines)
             self.shown_titles.append(fitted)
             self.fig.text(fx(l), fy(b + h + 0.55), fitted, fontsize=st.title_pt, fontweight="bold",
                           ha="left", va="bottom", linespacing=1.1)
-            self.fig.add_artist(_rule(self.fig, fx(l), fx(l + w), fy(b + h + 0.35)))
+            if not framed:   # a framed panel's top edge already rules its title off
+                self.fig.add_artist(_rule(self.fig, fx(l), fx(l + w), fy(b + h + 0.35)))
 
     def draw_grid_headers(self) -> None:
         """Row and column headers of a two-way grid, each with a rule, and the two strata's
@@ -904,7 +910,8 @@ class _Assembly:
             l, b, w, h = L.panel_box(grid, j, m, H)
             fig.text(fx(l + w / 2), fy(top_of_grid + 0.6), _shorten_middle(title_w, str(cv), w),
                      fontsize=st.title_pt, ha="center", va="bottom")
-            fig.add_artist(_rule(fig, fx(l), fx(l + w), fy(top_of_grid + 0.4)))
+            if not self.framed():   # a framed panel's edge already rules its header off
+                fig.add_artist(_rule(fig, fx(l), fx(l + w), fy(top_of_grid + 0.4)))
         lw1, _, _, _ = L.panel_box(grid, grid.cols - 1, m, H)
         fig.text(fx((l0 + lw1 + w0) / 2), fy(top_of_grid + 0.6 + L.text_mm(st.title_pt) + 0.3),
                  _shorten_middle(bold, spec.labels.get(cf, (cf, ""))[0], lw1 + w0 - l0),
@@ -916,7 +923,8 @@ class _Assembly:
             fig.text(fx(l + w + 0.6), fy(b + h / 2), _shorten_middle(title_w, str(rv), h),
                      fontsize=st.title_pt, rotation=270, ha="center", va="bottom",
                      rotation_mode="anchor")
-            fig.add_artist(_rule(fig, fx(l + w + 0.4), fx(l + w + 0.4), fy(b), fy(b + h)))
+            if not self.framed():
+                fig.add_artist(_rule(fig, fx(l + w + 0.4), fx(l + w + 0.4), fy(b), fy(b + h)))
         lb = L.panel_box(grid, (grid.rows - 1) * grid.cols, m, H)
         mid = (lb[1] + top_of_grid) / 2
         fig.text(fx(right_edge + 0.6 + L.text_mm(st.title_pt) + 0.3), fy(mid),
