@@ -177,8 +177,10 @@ sheet: config/figures.tsv
 results: results
 style: house
 formats: [pdf, png, svg]
-# Your journal's column widths in mm; the sheet's 'size' column names one.  These are the house
-# style's presets: change the numbers, or add a name of your own.
+# Your journal's column widths in mm; the sheet's 'size' column names one.  These are the presets
+# this project uses (they replace the house style's): change the numbers, rename or add one.  A
+# row with no 'size' takes default_size (here, or 'full' when not set), which must be listed.
+default_size: full
 sizes:
   single: 84
   one-and-half: 120
