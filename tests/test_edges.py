@@ -43,12 +43,11 @@ def penguin_shares(tmp_path_factory) -> Path:
     shutil.copytree(REPO / "figkit" / "styles", root / "styles")
     load_penguins().to_csv(root / "data" / "penguins.csv", index=False)
     (root / "config" / "config.yaml").write_text(
-        "datasets:\n  penguins: data/penguins.csv\nformats: [png]\nsizes: {single: 89, double: 183}\n"
-        "default_size: single\n")
+        "datasets:\n  penguins: data/penguins.csv\nformats: [png]\nsizes: {single: 89, double: 183}\n")
     (root / "config" / "figures.tsv").write_text(
-        "id\tdataset\tchart\tx\tcolour\n"
-        "island-shares\tpenguins\tshares\tisland\tspecies\n"     # one panel: no title above it
-        "island-bars\tpenguins\tcount-bars\tisland\tspecies\n")
+        "id\tdataset\tchart\tx\tcolour\tsize\n"
+        "island-shares\tpenguins\tshares\tisland\tspecies\tsingle\n"     # one panel: no title above it
+        "island-bars\tpenguins\tcount-bars\tisland\tspecies\tsingle\n")
     logging.disable(logging.WARNING)
     try:
         for fig_id in ("island-shares", "island-bars"):

@@ -6,7 +6,11 @@ from __future__ import annotations
 
 import threading
 
-from figkit.workflow import RATE_TIMER_NAME, stop_rate_timers
+import figkit.workflow
+from figkit.workflow import stop_rate_timers
+
+# Snakemake's private callback name (its own spelling), as figkit looks for it
+RATE_TIMER_NAME = getattr(figkit.workflow, "RATE_TIMER_NAME", "_schedule_reevalutation")
 
 
 class _Odd:
