@@ -43,6 +43,8 @@ def test_stops_only_the_named_timer():
         assert ours.finished.is_set() and not theirs.finished.is_set()
     finally:
         theirs.cancel()
+        for t in (ours, theirs):     # a cancelled timer's thread ends soon after: wait for it
+            t.join(5)
 
 
 def test_no_op_when_the_private_name_is_missing_or_odd():
@@ -56,3 +58,4 @@ def test_no_op_when_the_private_name_is_missing_or_odd():
     finally:
         for t in timers:
             t.cancel()
+            t.join(5)
