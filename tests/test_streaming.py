@@ -219,3 +219,16 @@ def test_text_rows_are_counted_in_every_chunk(tmp_path, monkeypatch, fmt):
         texts.append(str(err.value))
         assert f"holds text in {expect} rows" in texts[-1], texts[-1]
     assert texts[0] == texts[1]
+
+
+def test_missing_values_per_field_are_the_same_on_both_paths(tmp_path, monkeypatch):
+    """Rows dropped for a missing value are counted per field alike in memory and streamed, and
+    equal pandas' isna() count over the rows that belong to a panel."""
+    path = _project(tmp_path, "csv")
+    spec = _spec(tmp_path, path.relative_to(tmp_path).as_posix(), chart="hexbins", x="x", y="y",
+                 strata="g")
+    whole, streamed = _both_paths(spec, monkeypatch)
+    df = pd.read_csv(path)
+    in_panels = df[df["g"].notna()]
+    expect = {f: int(in_panels[f].isna().sum()) for f in ("x", "y") if in_panels[f].isna().any()}
+    assert whole.missing == streamed.missing == expect and expect
