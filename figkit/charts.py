@@ -401,11 +401,13 @@ def _by_level(panel: Panel, fld: str, levels: list):
 def draw_box(ax, panel: Panel, ctx: Context) -> dict:
     spec = ctx.spec
     levels = ctx.shared["xlevels"]
+    method = spec.options.get("quartiles", "linear")
     bxp, groups = [], []
     for i, level, part in _by_level(panel, spec.x, levels):
         if part is None or len(part) == 0:
             continue
-        b = stats.box_stats(part[spec.y].to_numpy(dtype=float), whisker=spec.options.get("whisker", 1.5))
+        b = stats.box_stats(part[spec.y].to_numpy(dtype=float), whisker=spec.options.get("whisker", 1.5),
+                            method=method)
         bxp.append({"med": b.median, "q1": b.q1, "q3": b.q3, "whislo": b.whisker_low,
                     "whishi": b.whisker_high, "fliers": b.outliers, "label": str(level), "_pos": i})
         groups.append({"group": level, "n": b.n, "q1": b.q1, "median": b.median, "q3": b.q3,
@@ -423,7 +425,9 @@ def draw_box(ax, panel: Panel, ctx: Context) -> dict:
                                alpha=0.7, rasterized=sum(len(s["fliers"]) for s in bxp) > 2000))
     # Outliers stay vector (editable, sharp) unless there are so many that the file would swell.
     _category_axis(ax, levels)
-    return {"groups": groups}
+    return {"groups": groups, "quartiles": method,
+            "quartile_method": stats.QUARTILE_METHOD_TEXT[method],
+            "whisker_iqr": float(spec.options.get("whisker", 1.5))}
 
 
 def draw_violin(ax, panel: Panel, ctx: Context) -> dict:
@@ -453,7 +457,8 @@ def draw_violin(ax, panel: Panel, ctx: Context) -> dict:
     if sizes and max(sizes) > 10 * min(sizes):
         ctx.cautions.append(f"panel '{panel.label or 'all'}': violins have the same width whatever "
                             f"their size ({min(sizes)} to {max(sizes)} rows); see n per group in the sidecar")
-    return {"groups": groups}
+    return {"groups": groups, "quartiles": "linear",
+            "quartile_method": stats.QUARTILE_METHOD_TEXT["linear"]}
 
 
 def _bandwidth_rule(text: str):
@@ -509,29 +514,37 @@ def prepare_histogram(ctx: Context) -> None:
     x = _values(panels, spec.x)
     rule = spec.options.get("bins", "fd")
     rule = int(float(rule)) if rule not in ("fd", "sturges") else rule
+    exact = spec.options.get("edges", "aligned") == "exact"
     streamed = getattr(ctx.data, "streamed", None)
     if streamed and streamed.get("bin_edges"):      # counted while streaming, on these edges
         edges = np.asarray(streamed["bin_edges"])
+        info = dict(streamed["bin_info"])
     else:
         # Edges from the pooled data of every panel: the same bins everywhere (comparable panels).
-        edges = stats.bin_edges(x, rule) if x.size else np.linspace(0, 1, 11)
-        if isinstance(rule, str):   # a rule's width may move to the recorded grid; a count stays
-            edges = stats.align_edges(edges, stats.data_resolution(x))
+        raw = stats.bin_edges(x, rule) if x.size else np.linspace(0, 1, 11)
+        # A rule's width may move to the recorded grid (said in the sidecar); a count stays.
+        edges, info = stats.bin_layout(raw, rule, stats.data_resolution(x), exact)
     ctx.shared["edges"] = edges
     ctx.shared["bin_rule"] = rule
+    ctx.shared["bin_info"] = info
 
 
 def draw_histogram(ax, panel: Panel, ctx: Context) -> dict:
     spec, edges = ctx.spec, ctx.shared["edges"]
     if panel.tally is not None:
         counts = panel.tally.hist_counts
+        if counts is None:
+            counts = np.zeros(len(edges) - 1, dtype=np.int64)
     else:
         counts, _ = np.histogram(panel.frame[spec.x].to_numpy(dtype=float), bins=edges)
     colour = ctx.use(NEUTRAL)
     ax.stairs(counts, edges, fill=True, color=colour, alpha=0.85, zorder=2)
     ax.stairs(counts, edges, color="white", linewidth=0.3, zorder=3)
+    info = ctx.shared["bin_info"]
     return {"bins": len(edges) - 1, "bin_rule": str(ctx.shared["bin_rule"]),
-            "bin_width": float(edges[1] - edges[0])}
+            "bin_width": float(edges[1] - edges[0]), "rule_bin_width": info["rule_width"],
+            "aligned_to_step": info["aligned_to_step"],
+            "bin_counts": [int(c) for c in counts]}
 
 
 # ---------------------------------------------------------------------------- counts

@@ -50,7 +50,9 @@ def _cmd_lint(args) -> int:
     project = load_project(args.project)
     problems = cautioned = 0
     limit = int(project.config["stream_above_mb"] * 2 ** 20)
-    for note in _settings_notes(project):
+    settings = _settings_notes(project)
+    printed = len(settings)
+    for note in settings:
         print(f"figkit: caution: {note}", file=sys.stderr)
     for row in project.rows:
         try:
@@ -64,11 +66,14 @@ def _cmd_lint(args) -> int:
             print(f"figkit: error: {exc.at(row=row.number, figure=row.id)}", file=sys.stderr)
             continue
         cautioned += bool(notes)    # a misspelt orders value or filter value: likely mistakes
+        printed += len(notes)
         for note in notes:
             print(f"figkit: caution: sheet row {row.number}, figure '{row.id}': {note}", file=sys.stderr)
     n = len(project.rows)
+    # The summary counts every caution printed above: per row, and about the settings.
     print(f"figkit: lint: {n} figure row{'' if n == 1 else 's'}, {problems} with problems, "
-          f"{cautioned} with cautions")
+          f"{cautioned} with cautions; {len(settings)} caution{'' if len(settings) == 1 else 's'} "
+          f"about config.yaml; {printed} caution{'' if printed == 1 else 's'} in all")
     return 2 if problems else 0
 
 
@@ -298,8 +303,10 @@ sheet: config/figures.tsv
 results: results
 style: house
 formats: [pdf, png, svg]
-# Your journal's column widths in mm; the sheet's 'size' column names one.  These are the house
-# style's presets: change the numbers, or add a name of your own.
+# Your journal's column widths in mm; the sheet's 'size' column names one.  These are the presets
+# this project uses (they replace the house style's): change the numbers, rename or add one.  A
+# row with no 'size' takes default_size (here, or 'full' when not set), which must be listed.
+default_size: full
 sizes:
   single: 84
   one-and-half: 120
@@ -328,7 +335,8 @@ SCAFFOLD_SHEET = [
 
 
 def _cmd_init(args) -> int:
-    from .demo import write_demo_data
+    from .demo import check_scale, write_demo_data
+    check_scale(args.scale)         # before anything is written: no half-made folder
     target = Path(args.dir)
     if target.exists() and any(target.iterdir()):
         raise FigkitError("folder is not empty; figkit init will not overwrite anything",
@@ -349,31 +357,50 @@ def _cmd_init(args) -> int:
     return 0
 
 
+class _Fmt(argparse.RawDescriptionHelpFormatter):
+    """Help with the epilog's examples kept on their own lines."""
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="figkit", description="Journal-ready small-multiple figures "
-                                "from a figure sheet.")
+                                "from a figure sheet.", formatter_class=_Fmt,
+                                epilog="examples:\n  figkit init ~/papers/my-paper\n  figkit lint\n"
+                                       "  figkit render --id oxygen-temperature\n"
+                                       "  figkit COMMAND --help   (options and an example of each command)")
     from . import __version__
     p.add_argument("--version", action="version", version=f"figkit {__version__}")
     sub = p.add_subparsers(dest="command", required=True)
-    r = sub.add_parser("render", help="build one figure of the sheet")
+    r = sub.add_parser("render", help="build one figure of the sheet", formatter_class=_Fmt)
     r.add_argument("--id", required=True, help="the figure's id (sheet column 'id')")
     r.add_argument("--project", default=".", help="manuscript folder (default: here)")
     r.set_defaults(func=_cmd_render)
-    i = sub.add_parser("init", help="start a manuscript folder")
-    i.add_argument("dir")
+    r.epilog = "example:\n  figkit render --id oxygen-temperature --project ~/papers/my-paper"
+    i = sub.add_parser("init", help="start a manuscript folder", formatter_class=_Fmt,
+                       epilog="example:\n  figkit init ~/papers/my-paper && cd ~/papers/my-paper "
+                              "&& snakemake --cores 2")
+    i.add_argument("dir", help="the new folder (must not exist yet, or be empty)")
     i.add_argument("--scale", type=float, default=0.05,
-                   help="size of the starter data relative to the demo (default 0.05)")
+                   help="size of the starter data relative to the demo, 0 < S <= 20 (default 0.05)")
     i.set_defaults(func=_cmd_init)
-    lt = sub.add_parser("lint", help="check sheet, settings, styles and each row against its data, without drawing")
-    lt.add_argument("--project", default=".")
+    lt = sub.add_parser("lint", help="check sheet, settings, styles and each row against its data, without drawing",
+                        formatter_class=_Fmt,
+                        epilog="exit status: 0 when no row has a problem (cautions allowed), 2 otherwise\n"
+                               "example:\n  figkit lint --project ~/papers/my-paper")
+    lt.add_argument("--project", default=".", help="manuscript folder (default: here)")
     lt.set_defaults(func=_cmd_lint)
-    pa = sub.add_parser("palettes", help="write swatch sheets of the built-in palettes")
+    pa = sub.add_parser("palettes", help="write swatch sheets of the built-in palettes",
+                        formatter_class=_Fmt, epilog="example:\n  figkit palettes --out swatches")
     pa.add_argument("--out", required=True, help="folder for palettes.png and palettes.pdf")
     pa.set_defaults(func=_cmd_palettes)
-    inf = sub.add_parser("info", help="print the provenance a figure file carries")
-    inf.add_argument("file")
+    inf = sub.add_parser("info", help="print the provenance a figure file carries", formatter_class=_Fmt,
+                         epilog="example:\n  figkit info results/figures/oxygen-temperature.pdf")
+    inf.add_argument("file", help="a figure file figkit wrote: PDF, PNG, SVG or TIFF")
     inf.set_defaults(func=_cmd_info)
-    pf = sub.add_parser("preflight", help="re-check built figure files against the artwork rules")
+    pf = sub.add_parser("preflight", help="re-check built figure files against the artwork rules",
+                        formatter_class=_Fmt,
+                        epilog="exit status: 0 when every check passed or only warned, 1 when a check "
+                               "failed, 2 for a mistake in the input\n"
+                               "example:\n  figkit preflight oxygen-temperature --strict")
     pf.add_argument("ids", nargs="*", metavar="ID", help="figure ids (default: every row)")
     pf.add_argument("--project", default=".", help="manuscript folder (default: here)")
     pf.add_argument("--strict", action="store_true", help="judge colour separability too (a failing check, not a warning)")

@@ -192,6 +192,7 @@ class FigureData:
     streamed: dict | None = None  # set when the data were read chunk by chunk
     present: dict = field(default_factory=dict)   # colour field -> values kept by the filter
     notes: list = field(default_factory=list)     # cautions about the data (orders lists, ...)
+    missing: dict = field(default_factory=dict)   # field -> rows of the panels missing it
 
 
 def _factorized(values: pd.Series, fld: str, spec: FigureSpec) -> tuple[np.ndarray, list]:
@@ -209,25 +210,48 @@ def _json_value(v):
     return v
 
 
+def _text_in_numbers(frame: pd.DataFrame, field: str) -> pd.Series | None:
+    """Cells of a numeric field that hold text; None when the column is numeric.  An empty
+    result for a text column means numbers kept as text (a Parquet string column)."""
+    s = frame[field]
+    if pd.api.types.is_numeric_dtype(s):
+        return None
+    return s[pd.to_numeric(s, errors="coerce").isna() & s.notna()]
+
+
+def _stored_as_text(spec: FigureSpec, field: str, role: str, dtype):
+    return spec.err(f"{role} field '{field}' must be numeric for chart '{spec.chart.name}'",
+                    field=role, value=f"{field} is stored as text ({dtype})",
+                    allowed="a numeric column: store these values as numbers")
+
+
+def _text_error(spec: FigureSpec, field: str, role: str, n_bad: int, examples: list,
+                first_pos: int | None):
+    """The one-line error for text in a numeric field: how many rows, a few values, the first."""
+    sample = ", ".join(repr(v) for v in examples[:3])
+    # Frames keep each row's position in the file (0 = the first data row; see read_dataset
+    # and iter_chunks), so the first bad value can be found: a spreadsheet shows a CSV's
+    # header as row 1; a Parquet file has no header row.
+    where = "" if first_pos is None else (
+        f", first in data row {first_pos + 1}" if _reader(spec.data_path) == "parquet"
+        else f", first at row {first_pos + 2} of the file (header = row 1)")
+    return spec.err(f"{role} field '{field}' must be numeric for chart '{spec.chart.name}'",
+                    field=role, value=f"{field} holds text in {n_bad} rows such as {sample}{where}",
+                    allowed="a numeric column (decimal point, not comma; empty cells for missing)")
+
+
+def _first_pos(bad: pd.Series) -> int | None:
+    return int(bad.index[0]) if len(bad) and pd.api.types.is_integer_dtype(bad.index) else None
+
+
 def _check_kind(frame: pd.DataFrame, field: str, need: str, spec: FigureSpec, role: str) -> None:
     s = frame[field]
-    if need == NUMERIC and not pd.api.types.is_numeric_dtype(s):
-        bad = s[pd.to_numeric(s, errors="coerce").isna() & s.notna()]
-        if not len(bad):       # numbers kept as text (a Parquet string column)
-            raise spec.err(f"{role} field '{field}' must be numeric for chart '{spec.chart.name}'",
-                           field=role, value=f"{field} is stored as text ({s.dtype})",
-                           allowed="a numeric column: store these values as numbers")
-        sample = ", ".join(repr(v) for v in pd.unique(bad)[:3])
-        # Frames keep each row's position in the file (0 = the first data row; see read_dataset
-        # and iter_chunks), so the first bad value can be found: a spreadsheet shows a CSV's
-        # header as row 1; a Parquet file has no header row.
-        pos = int(bad.index[0]) if pd.api.types.is_integer_dtype(bad.index) else None
-        where = "" if pos is None else (
-            f", first in data row {pos + 1}" if _reader(spec.data_path) == "parquet"
-            else f", first at row {pos + 2} of the file (header = row 1)")
-        raise spec.err(f"{role} field '{field}' must be numeric for chart '{spec.chart.name}'",
-                       field=role, value=f"{field} holds text in {len(bad)} rows such as {sample}{where}",
-                       allowed="a numeric column (decimal point, not comma; empty cells for missing)")
+    if need == NUMERIC:
+        bad = _text_in_numbers(frame, field)
+        if bad is not None and len(bad):
+            raise _text_error(spec, field, role, len(bad), list(pd.unique(bad)[:3]), _first_pos(bad))
+        if bad is not None:
+            raise _stored_as_text(spec, field, role, s.dtype)
     if need == CATEGORY and pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
         distinct = s.nunique()
         if distinct > 50:
@@ -272,8 +296,11 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     if should_stream(spec, stream_above_bytes):
         return stream_figure_data(spec, rel_to)
     check_columns(spec, read_columns(path))
+    from . import progress
+    progress.stage(f"reading {path.name}")
     frame = read_dataset(path, spec.columns_needed())
     n_read = len(frame)
+    progress.stage(f"read {n_read:,} rows of {path.name}; splitting into panels")
     for banding in spec.bandings:
         frame[banding.name] = apply_banding(frame[banding.source], banding)
     ordered = _ordered_fields(spec)
@@ -350,6 +377,8 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
         grid_levels = (rlev, clev)
     k = len(keys_list)
     ordered, bounds, dropped = split_rows(frame, codes, k, used)
+    # Which fields the dropped rows miss, with a count each (only when some are dropped).
+    missing = {f: int(frame[f].isna().sum()) for f in used} if dropped.any() else {}
     for i in range(k):
         panels.append(Panel(labels[i], {f: _json_value(v) for f, v in keys_list[i].items()},
                             ordered.iloc[bounds[i]:bounds[i + 1]], int(dropped[i]),
@@ -359,6 +388,7 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
                       n_unassigned, grid_levels)
     data.present = present
     data.notes = notes
+    data.missing = {f: n for f, n in missing.items() if n}
     return data
 
 
@@ -382,8 +412,10 @@ def should_stream(spec: FigureSpec, limit_bytes: int | None = None) -> bool:
     return spec.data_path.is_file() and spec.data_path.stat().st_size > limit
 
 
-def iter_chunks(path: Path, columns: list[str], rows: int = CHUNK_ROWS):
-    """DataFrames of at most ``rows`` rows holding only ``columns``."""
+def iter_chunks(path: Path, columns: list[str], rows: int | None = None):
+    """DataFrames of at most ``rows`` rows (default: CHUNK_ROWS, read at call time) holding
+    only ``columns``."""
+    rows = rows or CHUNK_ROWS
     kind = _reader(path)
     if kind == "parquet":
         try:
@@ -424,19 +456,20 @@ def _prepared_chunks(spec: FigureSpec, progress=None, raw=None):
 
 
 def _progress_printer(path: Path):
-    """A one-line progress count on a terminal only (never in logs or CI output)."""
-    import sys
-    if not sys.stderr.isatty():
-        return None, lambda: None
+    """A row count on the job's progress line (figkit.progress: on a terminal only, never in
+    logs or CI output); outside a figure job, a line of its own."""
+    from . import progress
+    own = progress.current() is None
+    line = progress.Progress(None) if own else progress.current()
     total = [0]
 
     def step(rows):
         total[0] += rows
-        sys.stderr.write(f"\rfigkit: reading {path.name}: {total[0]:,} rows")
-        sys.stderr.flush()
+        line.stage(f"reading {path.name}: {total[0]:,} rows")
 
     def done():
-        sys.stderr.write("\n")
+        if own:
+            line.close()
     return step, done
 
 
@@ -468,6 +501,8 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
                 numeric.add(f)          # numbers: a text filter value is not judged (as in memory)
             if f in ordered or f not in numeric:   # no set of every number: memory stays bounded
                 whole[f].update(chunk[f].dropna().unique().tolist())
+    texts: dict = {}     # role -> text cells in a numeric field, counted over every chunk
+    as_text: dict = {}   # role -> dtype of a numeric field stored as text (numbers only)
     step, done = _progress_printer(path)
     for chunk, read in _prepared_chunks(spec, step, collect):
         n_read += read
@@ -475,8 +510,21 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
         if len(chunk):   # every chunk: a bad value may sit anywhere in a big file
             for role, need in (("x", spec.chart.x), ("y", spec.chart.y)):
                 fld = getattr(spec, role)
-                if fld and need:
+                if fld and need == CATEGORY:
                     _check_kind(chunk, fld, need, spec, role)
+                elif fld and need == NUMERIC:   # text is counted over every chunk, then reported
+                    bad = _text_in_numbers(chunk, fld)
+                    if bad is not None and not len(bad):
+                        as_text.setdefault(role, chunk[fld].dtype)   # said if nothing worse
+                    elif bad is not None:
+                        t = texts.setdefault(role, {"n": 0, "examples": [], "first": None})
+                        t["n"] += len(bad)
+                        t["first"] = _first_pos(bad) if t["first"] is None else t["first"]
+                        for v in pd.unique(bad):
+                            if len(t["examples"]) < 3 and v not in t["examples"]:
+                                t["examples"].append(v)
+        if texts or as_text:
+            continue     # the numbers of this file are not read: the error follows the pass
         for f in used:
             v = chunk[f].to_numpy(dtype=float)
             if np.isfinite(v).any():
@@ -487,6 +535,10 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
         if spec.chart.name == "histogram" and len(chunk):
             keep = rng.random(len(chunk)) < min(1.0, SAMPLE_ROWS / max(len(chunk), 1))
             sample.append(chunk.loc[keep, spec.x].dropna().to_numpy(dtype=float))
+    for role, t in texts.items():
+        raise _text_error(spec, getattr(spec, role), role, t["n"], t["examples"], t["first"])
+    for role, dtype in as_text.items():
+        raise _stored_as_text(spec, getattr(spec, role), role, dtype)
     if n_kept == 0:
         raise spec.err("no rows left after the filter", field="filter",
                        value=spec.filter.text if spec.filter is not None else None,
@@ -503,7 +555,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
         rl, cl = order(strata[0]), order(strata[1])
         keys_list = [{strata[0]: r, strata[1]: c} for r in rl for c in cl]
         cells = [(i, j) for i in range(len(rl)) for j in range(len(cl))]
-    grid = edges = None
+    grid = edges = bin_info = None
     if spec.chart.name == "hexbins":
         from .aggregate import padded_range
         xl, yl = padded_range(lo[spec.x], hi[spec.x]), padded_range(lo[spec.y], hi[spec.y])
@@ -518,12 +570,13 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
         k = max(1, int(np.ceil((hi[spec.x] - lo[spec.x]) / (width_edges[1] - width_edges[0]) - 1e-9)))
         edges = np.linspace(lo[spec.x], hi[spec.x], k + 1) if isinstance(rule, str) else \
             np.linspace(lo[spec.x], hi[spec.x], rule + 1)
-        if isinstance(rule, str):
-            edges = stats.align_edges(edges, stats.data_resolution(pooled))
+        edges, bin_info = stats.bin_layout(edges, rule, stats.data_resolution(pooled),
+                                           spec.options.get("edges", "aligned") == "exact")
 
     # Pass 2: tallies.
     tallies = {tuple(k.get(f) for f in strata): PanelTally() for k in keys_list}
     n_unassigned = 0
+    missing: dict = {}
     for chunk, _ in _prepared_chunks(spec):
         if strata:
             has = chunk[strata].notna().all(axis=1)
@@ -537,6 +590,9 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
             tally = tallies[tuple(_json_value(k) for k in key)] if strata else tallies[()]
             complete = part[used].notna().all(axis=1)
             tally.n_dropped += int((~complete).sum())
+            if not complete.all():
+                for f in used:
+                    missing[f] = missing.get(f, 0) + int(part[f].isna().sum())
             part = part.loc[complete]
             x = part[spec.x].to_numpy(dtype=float)
             y = part[spec.y].to_numpy(dtype=float) if spec.y else None
@@ -553,10 +609,11 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     grid_levels = (order(strata[0]), order(strata[1])) if len(strata) == 2 else ()
     data = FigureData(panels, [input_record(path, rel_to or spec.root)], n_read, n_kept, {},
                       n_unassigned, grid_levels)
+    data.missing = {f: n for f, n in missing.items() if n}
     data.notes = [n for f in ordered for n in order_notes(f, spec.orders[f], sorted(whole[f], key=natural_key))]
     data.notes += filter_notes(spec, lambda col: None if col in numeric else whole.get(col))
     data.streamed = {"chunk_rows": CHUNK_ROWS, "hex_grid": None if grid is None else
                      [grid.xmin, grid.xmax, grid.ymin, grid.ymax, grid.nx],
-                     "bin_edges": None if edges is None else edges.tolist(),
+                     "bin_edges": None if edges is None else edges.tolist(), "bin_info": bin_info,
                      "sample_rows": int(sum(len(s) for s in sample)) if sample else None}
     return data

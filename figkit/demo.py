@@ -294,6 +294,15 @@ def _write_csv(df: pd.DataFrame, path: Path) -> None:
         raise
 
 
+def check_scale(scale) -> None:
+    """The demo's size factor: a number, 0 < scale <= MAX_SCALE (else a one-line error)."""
+    if isinstance(scale, bool) or not isinstance(scale, numbers.Real) \
+            or not math.isfinite(scale) or not 0 < scale <= MAX_SCALE:
+        raise FigkitError(f"demo: scale must be a number above 0 and at most {MAX_SCALE:g}",
+                          field="scale", value=scale,
+                          allowed=f"0 < scale <= {MAX_SCALE:g}")
+
+
 def write_demo_data(out_dir, scale: float = 1.0, seed: int = DEFAULT_SEED) -> dict[str, Path]:
     """Write ``sites.csv``, ``readings.csv`` and ``surveys.csv`` into ``out_dir``.
 
@@ -302,10 +311,7 @@ def write_demo_data(out_dir, scale: float = 1.0, seed: int = DEFAULT_SEED) -> di
     never change.  The same ``seed`` and ``scale`` always give byte-identical files.
     Returns ``{"sites": path, "readings": path, "surveys": path}``.
     """
-    if isinstance(scale, bool) or not isinstance(scale, numbers.Real) \
-            or not math.isfinite(scale) or not 0 < scale <= MAX_SCALE:
-        raise FigkitError("demo: scale must be a number above 0", field="scale", value=scale,
-                          allowed=f"0 < scale <= {MAX_SCALE:g}")
+    check_scale(scale)
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
         raise FigkitError("demo: seed must be a whole number, 0 or more", field="seed",
                           value=seed)
@@ -331,18 +337,20 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(
         prog="python -m figkit.demo",
         description="Write the invented river-monitoring demo data (sites, readings, "
-                    "surveys) as CSV files.")
+                    "surveys) as CSV files.",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+        epilog="example:\n  python -m figkit.demo data --scale 0.05")
     parser.add_argument("out_dir", help="folder to write the CSV files into")
     parser.add_argument("--scale", type=float, default=1.0,
-                        help="size of the readings table relative to the full demo "
-                             "(1 gives 210 240 rows; 0.01 is quick for tests)")
+                        help="size of the readings table relative to the full demo, "
+                             f"0 < S <= {MAX_SCALE:g} (1 gives 210 240 rows; 0.01 is quick for tests)")
     parser.add_argument("--seed", type=int, default=DEFAULT_SEED,
                         help=f"random seed (default {DEFAULT_SEED})")
     args = parser.parse_args(argv)
     try:
         paths = write_demo_data(args.out_dir, scale=args.scale, seed=args.seed)
     except FigkitError as err:
-        print(f"error: {err}", file=sys.stderr)
+        print(f"figkit: error: {err}", file=sys.stderr)
         return 2
     for name, path in paths.items():
         print(f"{name}: {path}")

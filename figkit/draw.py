@@ -24,6 +24,7 @@ from .style import mm_to_in, pt_to_mm
 HEADER_RULE = "#9AA1A9"
 ELLIPSIS = "…"
 EDGE_MM = 0.3          # nothing is drawn closer than this to the canvas edge
+TEXT_EDGE_MM = 0.6     # a text's box keeps this from the canvas edge (its glyphs a bit more)
 LABEL_GAP_MM = 0.8     # clear space between neighbouring level labels read side by side (common practice)
 TILT_DEG = 35          # first remedy for crowded category labels (common practice)
 WRAP_CHARS = 16        # upright category labels longer than this go on two lines (common practice)
@@ -151,6 +152,20 @@ def _right_overhang(fig, axes, grid: L.Grid) -> float:
         right = ax.get_position().x1 * fig.bbox.width
         for t in _drawn_tick_labels(ax.xaxis, renderer):
             worst = max(worst, _mm(fig, t.get_window_extent(renderer).x1 - right))
+    return worst
+
+
+def _top_overhang(fig, axes, grid: L.Grid) -> float:
+    """How far (mm) y tick labels of the first panel row reach above its top edge (a label at
+    the top of the range, as 100% of a shares chart, is centred on that edge)."""
+    renderer = fig.canvas.get_renderer()
+    worst = 0.0
+    for i, ax in enumerate(axes):
+        if i >= grid.cols:
+            break
+        top = ax.get_position().y1 * fig.bbox.height
+        for t in _drawn_tick_labels(ax.yaxis, renderer):
+            worst = max(worst, _mm(fig, t.get_window_extent(renderer).y1 - top))
     return worst
 
 
@@ -409,15 +424,34 @@ def _pin_ticks(fig) -> None:
 
 # ---------------------------------------------------------------------------- the figure
 
+_PREPARING = {"histogram": "binning", "hexbins": "binning", "scatter": "measuring overlap",
+              "density": "estimating densities", "violin": "estimating densities",
+              "box": "computing box statistics", "count-bars": "counting", "shares": "counting",
+              "tiles": "counting"}
+
+
 def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
     """Draw the figure; returns (figure, record) where record holds layout and per-panel numbers.
     ``note`` is one line of small print under the x title (the strata comparison, when the house
     style asks for it)."""
+    from . import progress
+    progress.stage(_PREPARING.get(spec.chart.name, "preparing"))
     job = _Assembly(spec, data, note)
     job.make_figure(job.plan_grid())
+    progress.stage(f"drawing {len(data.panels)} panel{'' if len(data.panels) == 1 else 's'}")
     job.draw_panels()
+    progress.stage("laying out")
     job.prepare_texts()
     job.relayout()
+    if not job.measured_at_final_size():
+        # The overplotting choice changes at the final panel size: draw again, measured there.
+        final = (job.grid.panel_w, job.grid.panel_h)
+        job = _Assembly(spec, data, note, panel_mm=final)
+        job.make_figure(job.plan_grid())
+        job.draw_panels()
+        job.prepare_texts()
+        job.relayout()
+        job.measured_at_final_size(redraw=False)
     job.place_key()
     job.draw_panel_titles()
     job.draw_grid_headers()
@@ -432,8 +466,10 @@ class _Assembly:
     given to panel and axis titles, the category label arrangement, the key's place).  Each
     public method is one step of :func:`build_figure`, in the order it calls them."""
 
-    def __init__(self, spec: FigureSpec, data: FigureData, note: str | None):
+    def __init__(self, spec: FigureSpec, data: FigureData, note: str | None,
+                 panel_mm: tuple[float, float] | None = None):
         st = spec.style
+        self.panel_hint = panel_mm    # the panel size to measure overplotting at, when known
         self.spec, self.data, self.note, self.st = spec, data, note, st
         self.panels = data.panels
         self.n = len(self.panels)
@@ -521,7 +557,7 @@ class _Assembly:
         self.in_cell = self.key is not None and grid.empty_cells > 0 and not spec.grid
         if self.key is not None and not self.in_cell:
             grid = self.choose_grid(self.margins(self.legend_w))
-        ctx.panel_mm = (grid.panel_w, grid.panel_h)
+        ctx.panel_mm = self.panel_hint or (grid.panel_w, grid.panel_h)
         self.drawer.prepare(ctx)
         if spec.chart.name == "scatter" and ctx.shared.get("mode") == "bins" and self.key is None:
             self.key = "bar"
@@ -529,7 +565,7 @@ class _Assembly:
             self.in_cell = grid.empty_cells > 0 and not spec.grid
             if not self.in_cell:
                 grid = self.choose_grid(self.margins(self.legend_w))
-                ctx.panel_mm = (grid.panel_w, grid.panel_h)
+                ctx.panel_mm = self.panel_hint or (grid.panel_w, grid.panel_h)
         self.legend_room = 0.0 if self.in_cell or self.key is None else self.legend_w
         return grid
 
@@ -644,6 +680,10 @@ class _Assembly:
                 over = _right_overhang(fig, axes, self.grid)
                 if over + EDGE_MM > mm.right:
                     mm = replace(mm, right=over + EDGE_MM)
+                # ... and y labels of the first row above it: they keep clear of the top edge.
+                over = _top_overhang(fig, axes, self.grid) + TEXT_EDGE_MM
+                if over > mm.top + mm.title:
+                    mm = replace(mm, top=over - mm.title)
             g = self.choose_grid(mm)
             now = (g.rows, g.cols, tuple(round(v, 2) for v in vars(mm).values()))
             self.place(g, mm)
@@ -699,6 +739,32 @@ class _Assembly:
                 self.set_category_labels(self.label_step)
                 return True
         return False
+
+    def measured_at_final_size(self, redraw: bool = True) -> bool:
+        """Overplotting (scatter) is measured at the panel size the layout settled on.  When
+        the grid was chosen again after the first measure, measure once more at the final size:
+        the same choice of drawing only updates the recorded numbers; another choice returns
+        False (with ``redraw``), and the figure is drawn again at that size."""
+        ctx, spec = self.ctx, self.spec
+        if spec.chart.name != "scatter":
+            return True
+        final = (self.grid.panel_w, self.grid.panel_h)
+        if ctx.panel_mm == final:
+            return True
+        from dataclasses import replace as _replace
+        from .charts import prepare_scatter
+        probe = _replace(ctx, panel_mm=final, shared={}, cautions=[], mappables=[], used_colours=[])
+        prepare_scatter(probe)
+        new = probe.shared
+        if redraw and (new["mode"], new["alpha"]) != (ctx.shared["mode"], ctx.shared["alpha"]):
+            return False
+        ctx.panel_mm = final
+        ctx.shared.update(cells=new["cells"], densest=new["densest"])
+        for panel, rec in zip(self.panels, self.records):
+            if "max_per_cell" in rec:
+                rec.update(max_per_cell=new["own_densest"].get(id(panel), 0),
+                           figure_max_per_cell=new["densest"], cells=list(new["cells"]))
+        return True
 
     # ------------------------------------------------------------------ the key
 
@@ -807,19 +873,25 @@ class _Assembly:
     def _fy(self, mm: float) -> float:
         return mm / self.height
 
+    def framed(self) -> bool:
+        """The house style draws a frame round each panel (its top and right edges visible)."""
+        return bool(self.axes) and all(self.axes[0].spines[k].get_visible() for k in ("top", "right"))
+
     def draw_panel_titles(self) -> None:
         """Panel titles, fitted, in our own look: left-aligned over a hairline rule."""
         st, fx, fy = self.st, self._fx, self._fy
         self.shown_titles = []
         if not self.titles:
             return
+        framed = self.framed()
         for i, text in enumerate(self.title_texts):
             l, b, w, h = L.panel_box(self.grid, i, self.margin, self.height)
             fitted = _fit_text(self.bold, text, w, self.title_lines)
             self.shown_titles.append(fitted)
             self.fig.text(fx(l), fy(b + h + 0.55), fitted, fontsize=st.title_pt, fontweight="bold",
                           ha="left", va="bottom", linespacing=1.1)
-            self.fig.add_artist(_rule(self.fig, fx(l), fx(l + w), fy(b + h + 0.35)))
+            if not framed:   # a framed panel's top edge already rules its title off
+                self.fig.add_artist(_rule(self.fig, fx(l), fx(l + w), fy(b + h + 0.35)))
 
     def draw_grid_headers(self) -> None:
         """Row and column headers of a two-way grid, each with a rule, and the two strata's
@@ -838,7 +910,8 @@ class _Assembly:
             l, b, w, h = L.panel_box(grid, j, m, H)
             fig.text(fx(l + w / 2), fy(top_of_grid + 0.6), _shorten_middle(title_w, str(cv), w),
                      fontsize=st.title_pt, ha="center", va="bottom")
-            fig.add_artist(_rule(fig, fx(l), fx(l + w), fy(top_of_grid + 0.4)))
+            if not self.framed():   # a framed panel's edge already rules its header off
+                fig.add_artist(_rule(fig, fx(l), fx(l + w), fy(top_of_grid + 0.4)))
         lw1, _, _, _ = L.panel_box(grid, grid.cols - 1, m, H)
         fig.text(fx((l0 + lw1 + w0) / 2), fy(top_of_grid + 0.6 + L.text_mm(st.title_pt) + 0.3),
                  _shorten_middle(bold, spec.labels.get(cf, (cf, ""))[0], lw1 + w0 - l0),
@@ -850,7 +923,8 @@ class _Assembly:
             fig.text(fx(l + w + 0.6), fy(b + h / 2), _shorten_middle(title_w, str(rv), h),
                      fontsize=st.title_pt, rotation=270, ha="center", va="bottom",
                      rotation_mode="anchor")
-            fig.add_artist(_rule(fig, fx(l + w + 0.4), fx(l + w + 0.4), fy(b), fy(b + h)))
+            if not self.framed():
+                fig.add_artist(_rule(fig, fx(l + w + 0.4), fx(l + w + 0.4), fy(b), fy(b + h)))
         lb = L.panel_box(grid, (grid.rows - 1) * grid.cols, m, H)
         mid = (lb[1] + top_of_grid) / 2
         fig.text(fx(right_edge + 0.6 + L.text_mm(st.title_pt) + 0.3), fy(mid),
@@ -923,6 +997,7 @@ class _Assembly:
         }
         if "edges" in ctx.shared:
             record["bin_edges"] = [float(e) for e in ctx.shared["edges"]]
+            record["bins"] = dict(ctx.shared["bin_info"])
         return record
 
 

@@ -9,6 +9,22 @@ from __future__ import annotations
 from collections.abc import Iterable
 
 
+def closest(value, choices, cutoff: float = 0.6) -> str | None:
+    """The allowed value closest in spelling to ``value`` (difflib's ratio, at least ``cutoff``:
+    the same search as the filter and orders checks), or None."""
+    import difflib
+    if not isinstance(value, str):
+        return None
+    found = difflib.get_close_matches(value, [str(c) for c in choices], n=1, cutoff=cutoff)
+    return found[0] if found else None
+
+
+def did_you_mean(value, choices) -> str:
+    """" (did you mean 'x'?)" for the closest allowed value, or "" when none is close."""
+    best = closest(value, choices)
+    return f" (did you mean {best!r}?)" if best is not None and best != value else ""
+
+
 class FigkitError(Exception):
     """A mistake in the user's sheet, config, styles or data."""
 

@@ -23,6 +23,56 @@ log = logging.getLogger("figkit")
 
 STATS_COLUMNS = ["panel", "group", "n", "n_dropped", "x_mean", "y_mean", "slope", "slope_ci_low",
                  "slope_ci_high", "intercept", "r"]
+# <id>.values.csv: the numbers drawn, one line per number (tidy, long form).  x is the category
+# (or, for bins, empty with x_low/x_high the bin's edges), group the colour group, y the second
+# category of tiles; measure names the number (count, share, q1, ...).
+VALUES_COLUMNS = ["panel", "group", "x", "x_low", "x_high", "y", "measure", "value"]
+_BOX_MEASURES = ("n", "q1", "median", "q3", "whisker_low", "whisker_high", "outliers")
+_VIOLIN_MEASURES = ("n", "q1", "median", "q3", "bandwidth")
+_SHARE_MEASURES = ("count", "total", "share", "share_ci_low", "share_ci_high")
+
+
+def drawn_values(spec: FigureSpec, panels: list[dict], edges=None) -> list[dict]:
+    """The numbers each panel draws, from the panel records of the sidecar: bin counts on the
+    shared edges, bar counts (or summed weights), shares, tile counts, box and violin statistics."""
+    out = []
+    kind = spec.chart.name
+    measure = "sum of " + spec.weight if spec.weight else "count"
+    for p in panels:
+        label = p["label"]
+
+        def add(value, name, x=None, group=None, y=None, low=None, high=None):
+            out.append({"panel": label, "group": group, "x": x, "x_low": low, "x_high": high,
+                        "y": y, "measure": name, "value": value})
+        if kind == "histogram" and edges is not None:
+            for i, c in enumerate(p.get("bin_counts") or []):
+                add(c, "count", low=edges[i], high=edges[i + 1])
+        elif kind == "count-bars":
+            for e in p.get("counts", []):
+                add(e["count"], measure, x=e["x"], group=e["group"])
+        elif kind == "shares":
+            for e in p.get("shares", []):
+                for m in _SHARE_MEASURES:
+                    if m in e:
+                        add(e[m], m if m not in ("count", "total") or not spec.weight
+                            else f"{m} (sum of {spec.weight})", x=e["x"], group=e["group"])
+        elif kind == "tiles":
+            for e in p.get("tiles", []):
+                add(e["count"], measure, x=e["x"], y=e["y"])
+        elif kind in ("box", "violin"):
+            for g in p.get("groups", []):
+                for m in (_BOX_MEASURES if kind == "box" else _VIOLIN_MEASURES):
+                    add(g[m], m, x=g["group"])
+    return out
+
+
+def _values_csv(lines: list[dict]) -> str:
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(VALUES_COLUMNS)
+    for line in lines:
+        w.writerow(["" if (v := P.clean(line.get(c))) is None else v for c in VALUES_COLUMNS])
+    return buf.getvalue()
 
 
 def spec_from_cells(cells: dict, project: Project | str | Path = ".") -> FigureSpec:
@@ -144,9 +194,11 @@ def rebuild_command(spec: FigureSpec, results: str) -> str:
 def render(project: Project, figure_id: str) -> dict:
     """Build one figure's files and sidecar under ``results/figures``; return the sidecar.
     Every mistake found on the way names the sheet row and the figure."""
+    from . import progress
     row = find_row(project.rows, figure_id)
     try:
-        return _render(project, row)
+        with progress.job(figure_id):
+            return _render(project, row)
     except FigkitError as exc:
         raise exc.at(row=row.number, figure=figure_id) from None
 
@@ -154,6 +206,7 @@ def render(project: Project, figure_id: str) -> dict:
 def _render(project: Project, row: SheetRow) -> dict:
     import matplotlib as mpl
     mpl.use("Agg", force=True)
+    from . import progress
     from .draw import build_figure
 
     spec = build_spec(row, project.config)
@@ -164,6 +217,7 @@ def _render(project: Project, row: SheetRow) -> dict:
     strata = strata_comparison(spec, data)
     with mpl.rc_context(spec.style.rc):
         fig, drawn = build_figure(spec, data, strata_note(strata) if spec.style.strata_note else None)
+        progress.stage("checking text and line sizes")
         sizes = enforce_minimums(fig, spec.style.min_text_pt, spec.style.min_line_pt,
                                  figure=spec.id, row=spec.row)
         stat_lines = panel_statistics(spec, data)
@@ -215,6 +269,7 @@ def _render(project: Project, row: SheetRow) -> dict:
         record = {
             "id": spec.id,
             "size_mm": drawn["size_mm"],
+            "size_preset": spec.size_preset,   # which preset, and from where (row or a default)
             "dpi": spec.style.dpi,
             "files": {fmt: f"{spec.id}.{fmt}" for fmt in spec.formats},
             "inputs": data.inputs,
@@ -226,6 +281,7 @@ def _render(project: Project, row: SheetRow) -> dict:
             "layout": drawn["layout"],
             "panels": panels,
             "rows_read": data.n_read, "rows_kept": data.n_kept, "rows_without_stratum": data.n_unassigned,
+            "missing_values": dict(data.missing or {}),   # field -> rows of the panels missing it
             "strata_test": strata,
             "colours": {"used": drawn["colours"], "min_delta_e": sep.min_delta_e},
             "min_font_pt": sizes.min_font_pt,
@@ -243,17 +299,23 @@ def _render(project: Project, row: SheetRow) -> dict:
         }
         if "bin_edges" in drawn:
             record["bin_edges"] = drawn["bin_edges"]
+            record["bins"] = drawn["bins"]
         if data.streamed is not None:
-            record["streamed"] = {k: v for k, v in data.streamed.items() if k != "bin_edges"}
+            record["streamed"] = {k: v for k, v in data.streamed.items()
+                                  if k not in ("bin_edges", "bin_info")}
         for msg in cautions:
             log.warning("%s: %s", spec.id, msg)
 
         meta = json.dumps(P.file_metadata(record), sort_keys=True, separators=(",", ":"))
         targets = [out_dir / f"{spec.id}.{fmt}" for fmt in spec.formats]
-        targets += [out_dir / f"{spec.id}.stats.csv", out_dir / f"{spec.id}.json"]
+        record["values_file"] = f"{spec.id}.values.csv"
+        targets += [out_dir / record["values_file"], out_dir / f"{spec.id}.stats.csv",
+                    out_dir / f"{spec.id}.json"]
         with P.atomic_outputs(targets) as temps:
             for fmt, tmp in zip(spec.formats, temps):
+                progress.stage(f"writing {fmt.upper()}")
                 _save(fig, tmp, fmt, spec, meta)
+            progress.stage("preflight: reading the files back")
             # Preflight reads the files just written (still under their temporary names); in a
             # strict house style a failure aborts here and nothing is renamed into place.
             from .preflight import preflight
@@ -269,6 +331,9 @@ def _render(project: Project, row: SheetRow) -> dict:
                     f"{c['name']} ({c['message']})" for c in failed))
             for c in failed:
                 log.warning("%s: preflight: %s: %s", spec.id, c["name"], c["message"])
+            progress.stage("writing the sidecar and tables")
+            temps[-3].write_text(_values_csv(drawn_values(spec, panels, record.get("bin_edges"))),
+                                 encoding="utf-8")
             temps[-2].write_text(_stats_csv(stat_lines), encoding="utf-8")
             temps[-1].write_text(P.dumps(record), encoding="utf-8")
     return P.clean(record)
@@ -280,10 +345,12 @@ def _dropped_notes(spec: FigureSpec, data: FigureData) -> list[str]:
     out = []
     kept = data.n_kept
     dropped = sum(p.n_dropped for p in data.panels)
-    fields = [f for f in dict.fromkeys((spec.x, spec.y, spec.colour, spec.weight)) if f]
     if dropped and kept:
+        # Only the fields that do miss values, with a count each (a row may miss several).
+        where = ", ".join(f"{f!r} in {n} row{'s' if n != 1 else ''}"
+                          for f, n in (data.missing or {}).items())
         out.append(f"{dropped} of {kept} rows ({100 * dropped / kept:.1f}%) are not drawn: a value "
-                   f"is missing in {', '.join(repr(f) for f in fields)} (n_dropped per panel)")
+                   f"is missing in {where} (n_dropped per panel)")
     if data.n_unassigned and kept:
         out.append(f"{data.n_unassigned} of {kept} rows ({100 * data.n_unassigned / kept:.1f}%) have no "
                    f"value of {' / '.join(repr(f) for f in spec.strata)} and belong to no panel")

@@ -16,7 +16,7 @@ from pathlib import Path
 import jsonschema
 import yaml
 
-from .errors import FigkitError
+from .errors import FigkitError, did_you_mean
 
 SCHEMA_DIR = Path(__file__).with_name("schemas")
 CONFIG_FILE = Path("config") / "config.yaml"
@@ -42,9 +42,11 @@ def _schema_message(err: jsonschema.ValidationError, sch: dict) -> tuple[str, st
     if err.validator == "additionalProperties":
         known = sorted(err.schema.get("properties", {})) or None
         extra = sorted(set(err.instance) - set(err.schema.get("properties", {})))
-        return f"unknown field {', '.join(map(repr, extra))}", fld, None, known
+        hint = did_you_mean(extra[0], known or ()) if len(extra) == 1 else ""
+        return f"unknown field {', '.join(map(repr, extra))}{hint}", fld, None, known
     if err.validator == "enum":
-        return "value not allowed", fld, err.instance, err.validator_value
+        return ("value not allowed" + did_you_mean(err.instance, err.validator_value), fld,
+                err.instance, err.validator_value)
     if err.validator == "pattern":
         desc = err.schema.get("description", f"text matching {err.validator_value}")
         return "badly formed value", fld, err.instance, desc
@@ -89,6 +91,10 @@ def validate_config(data: dict, root: Path | str = ".") -> Config:
     full.update(copy.deepcopy(data))
     # The project's house style is checked once here, not once per figure row that uses it (a
     # row's own 'style' cell is checked with that row).
+    if full.get("default_size") is not None and full.get("sizes") and \
+            full["default_size"] not in full["sizes"]:
+        raise FigkitError("config.yaml: 'default_size' is not one of the project's sizes:",
+                          field="default_size", value=full["default_size"], allowed=sorted(full["sizes"]))
     styles = Path(root) / full["styles_dir"]
     if styles.is_dir() and not (styles / f"{full['style']}.yaml").is_file():
         raise FigkitError("config.yaml: 'style' names an unknown house style", value=full["style"],
@@ -117,6 +123,7 @@ class SheetRow:
     number: int
     cells: dict
     error: FigkitError | None = field(default=None)
+    given: frozenset = field(default=frozenset())   # columns the row filled (not schema defaults)
 
     @property
     def id(self) -> str:
@@ -129,7 +136,7 @@ def check_row(number: int, cells: dict) -> SheetRow:
     errors = sorted(jsonschema.Draft202012Validator(sch).iter_errors(cells), key=lambda e: list(e.path))
     full = _defaults(sch)
     full.update(cells)
-    row = SheetRow(number, full)
+    row = SheetRow(number, full, given=frozenset(cells))
     if errors:
         msg, fld, value, allowed = _schema_message(errors[0], sch)
         row.error = FigkitError(msg, row=number, figure=cells.get("id"), field=fld, value=value,
@@ -149,6 +156,7 @@ def read_sheet(path: Path | str) -> list[SheetRow]:
     if not lines:
         raise FigkitError(f"figure sheet {path} is empty; it needs a header row")
     header = [h.strip() for h in lines[0]]
+    _refuse_other_separators(path, header)
     if len(set(header)) != len(header):
         dup = sorted({h for h in header if header.count(h) > 1})
         raise FigkitError(f"figure sheet {path}: repeated column {', '.join(dup)}")
@@ -180,6 +188,22 @@ def read_sheet(path: Path | str) -> list[SheetRow]:
         seen.setdefault(row.id, number)
         rows.append(row)
     return rows
+
+
+def _refuse_other_separators(path: Path, header: list[str]) -> None:
+    """A sheet saved as comma- or semicolon-separated text has a header of one cell holding every
+    column name: say that the sheet is tab-separated, instead of 'unknown field'."""
+    if len(header) != 1:
+        return
+    known = set(schema("sheet").get("properties", {}))
+    for sep, name in ((",", "commas"), (";", "semicolons")):
+        names = [h.strip().strip('"') for h in header[0].split(sep)]
+        if len(names) > 1 and sum(n in known for n in names) >= 2:
+            shown = header[0] if len(header[0]) <= 60 else header[0][:57] + "..."
+            raise FigkitError(f"figure sheet {path.name} is separated by {name}, but the sheet is "
+                              "tab-separated; save it as tab-separated text (.tsv)", row=1,
+                              field="header", value=shown,
+                              allowed="column names separated by tabs")
 
 
 def find_row(rows: list[SheetRow], figure_id: str) -> SheetRow:

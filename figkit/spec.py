@@ -50,7 +50,8 @@ CHARTS: dict[str, ChartKind] = {c.name: c for c in [
                        "scale": (str, "log", ("log", "linear")), "span": (float, 0.75, "0 < span <= 1"),
                        "degree": (int, 1, (1, 2)), "robust": (int, 0, "0-5 iterations")},
               summary="counts in hexagonal bins (Carr et al. 1987), one colour scale for all panels"),
-    ChartKind("box", CATEGORY, NUMERIC, options={"whisker": (float, 1.5, "IQR multiple > 0")},
+    ChartKind("box", CATEGORY, NUMERIC, options={"whisker": (float, 1.5, "IQR multiple > 0"),
+                                                 "quartiles": (str, "linear", ("linear", "hinges"))},
               summary="Tukey box plot of y per x group"),
     ChartKind("violin", CATEGORY, NUMERIC, options={"bandwidth": (str, "scott", "scott, silverman or a number")},
               summary="mirrored kernel density of y per x group, quartiles marked"),
@@ -58,7 +59,8 @@ CHARTS: dict[str, ChartKind] = {c.name: c for c in [
               options={"bandwidth": (str, "scott", "scott, silverman or a number"),
                        "dashes": (str, "no", ("yes", "no"))},
               summary="Gaussian kernel density curves of x with translucent fills"),
-    ChartKind("histogram", NUMERIC, None, options={"bins": (str, "fd", "fd, sturges or a count")},
+    ChartKind("histogram", NUMERIC, None, options={"bins": (str, "fd", "fd, sturges or a count"),
+                                                   "edges": (str, "aligned", ("aligned", "exact"))},
               summary="histogram of x on bin edges shared by every panel"),
     ChartKind("count-bars", CATEGORY, None, colour=(CATEGORY,), weight=True,
               summary="bars of counts (or summed weight) per x value, side by side per colour group"),
@@ -117,6 +119,7 @@ class FigureSpec:
     root: Path
     cells: dict = field(default_factory=dict)
     letters: bool = False             # letter each panel (case from the house style)
+    size_preset: dict | None = None   # {name, mm, from, presets_from}: which width and why
 
     @property
     def grid(self) -> bool:
@@ -242,7 +245,8 @@ def build_spec(row: SheetRow, config: Config, columns: list[str] | None = None) 
     kind = CHARTS[c["chart"]]
     style = load_style(c.get("style") or config["style"], config.root / config["styles_dir"],
                        config.get("sizes"), config.get("dpi"), row=num, figure=fig)
-    width = style.width_mm(c.get("size", "full"), row=num, figure=fig)
+    preset, size_from = _size_preset(row, config, style, err)
+    width = style.width_mm(preset, row=num, figure=fig)
 
     # Which fields this chart takes.
     for fld, need in (("x", kind.x), ("y", kind.y)):
@@ -295,10 +299,34 @@ def build_spec(row: SheetRow, config: Config, columns: list[str] | None = None) 
         style=style, options=options, caption=c.get("caption", ""), labels=labels,
         orders=dict(config.get("orders") or {}), pinned=dict(config.get("colours") or {}),
         formats=tuple(config["formats"]), root=config.root, cells=dict(c),
-        letters=c.get("panel_letters", "no") == "yes" and style.letters != "none")
+        letters=c.get("panel_letters", "no") == "yes" and style.letters != "none",
+        size_preset={"name": preset, "mm": width, "from": size_from,
+                     "presets_from": "config.yaml sizes:" if config.get("sizes")
+                     else f"house style '{style.name}'"})
     if columns is not None:
         check_columns(spec, columns)
     return spec
+
+
+DEFAULT_SIZE = "full"
+
+
+def _size_preset(row: SheetRow, config: Config, style: HouseStyle, err) -> tuple[str, str]:
+    """The row's size preset and where it came from: the row, config.yaml's default_size, or
+    figkit's default ('full').  A default the project's presets lack is an error, never a
+    width taken silently from elsewhere."""
+    if "size" in row.given or (not row.given and "size" in row.cells):
+        return row.cells["size"], "row"
+    if config.get("default_size"):
+        name, source = config["default_size"], "default_size in config.yaml"
+    else:
+        name, source = DEFAULT_SIZE, "figkit's default"
+    if name not in style.sizes:
+        where = "config.yaml sizes:" if config.get("sizes") else f"house style '{style.name}'"
+        raise err(f"no size given, and {source} '{name}' is not a preset of {where}; give the row "
+                  "a size or set default_size: in config.yaml", field="size", value=name,
+                  allowed=sorted(style.sizes))
+    return name, source
 
 
 def check_columns(spec: FigureSpec, columns: list[str]) -> None:
@@ -343,6 +371,7 @@ def fingerprint(row: SheetRow, config: Config) -> str:
         "row": c, "version": __version__,
         "dataset": (config.get("datasets") or {}).get(c.get("dataset")),
         "style": c.get("style") or config.get("style"), "sizes": config.get("sizes"),
+        **({"default_size": config["default_size"]} if config.get("default_size") else {}),
         "dpi": config.get("dpi"), "formats": config.get("formats"),
         "bands": {b: declared.get(b) for b in bands},
         "fields": {f: (config.get("fields") or {}).get(f) for f in sorted(used)},

@@ -572,6 +572,23 @@ def kde(x, grid, bandwidth: str | float = "scott", *, exact: bool | None = None)
 QUANTILE_METHODS = ("inverted_cdf", "averaged_inverted_cdf", "closest_observation",
                     "interpolated_inverted_cdf", "hazen", "weibull", "linear",
                     "median_unbiased", "normal_unbiased")
+HINGES = "hinges"     # Tukey's (1977) hinges: medians of the lower and upper halves
+QUARTILE_METHOD_TEXT = {
+    "linear": "numpy 'linear', Hyndman & Fan (1996) type 7",
+    HINGES: "Tukey's hinges (Tukey 1977): medians of the lower and upper halves, the median "
+            "counted in both when n is odd",
+}
+
+
+def tukey_hinges(values) -> tuple[float, float, float]:
+    """(lower hinge, median, upper hinge) of Tukey (1977), Exploratory Data Analysis, ch. 2:
+    the hinges are the medians of the lower and upper halves of the sorted values, the median
+    itself belonging to both halves when n is odd (depth of a hinge = (floor((n + 1) / 2) + 1) / 2)."""
+    v = np.sort(_finite(values, "x"))
+    if v.size == 0:
+        raise FigkitError("no values for hinges", field="x")
+    half = (v.size + 1) // 2
+    return (float(np.median(v[:half])), float(np.median(v)), float(np.median(v[v.size - half:])))
 
 
 @dataclass(frozen=True)
@@ -594,14 +611,14 @@ def box_stats(x, whisker: float = 1.5, method: str = "linear") -> BoxStats:
     Quartiles q1, median, q3 are numpy percentiles with ``method``, one of the
     Hyndman & Fan (1996) sample quantiles (``QUANTILE_METHODS``); the default
     "linear" is their type 7, Q(p) = x_(j) + g (x_(j+1) - x_(j)) with j + g = 1 + (n-1)p.
-    (Tukey's own hinges are the medians of the lower and upper halves; no single type
-    matches them for every n.)  IQR = q3 - q1.  Fences q1 - whisker*IQR and
+    Tukey's own hinges (``method="hinges"``, :func:`tukey_hinges`) are the medians of the
+    lower and upper halves; no single type matches them for every n.  IQR = q3 - q1.  Fences q1 - whisker*IQR and
     q3 + whisker*IQR (whisker = 1.5 in Tukey 1977); each whisker ends at the most
     extreme data point inside its fence, and points beyond the fences are outliers.
     """
-    if method not in QUANTILE_METHODS:
+    if method not in QUANTILE_METHODS and method != HINGES:
         raise FigkitError("unknown quantile method", field="method", value=method,
-                          allowed=QUANTILE_METHODS)
+                          allowed=QUANTILE_METHODS + (HINGES,))
     if (isinstance(whisker, bool) or not isinstance(whisker, (int, float, np.floating))
             or not math.isfinite(whisker) or whisker < 0):
         raise FigkitError("whisker length must be a number >= 0 (in IQRs)",
@@ -609,7 +626,10 @@ def box_stats(x, whisker: float = 1.5, method: str = "linear") -> BoxStats:
     v = np.sort(_finite(x, "x"))
     if v.size == 0:
         raise FigkitError("no values for a box plot", field="x")
-    q1, med, q3 = (float(a) for a in np.percentile(v, [25.0, 50.0, 75.0], method=method))
+    if method == HINGES:
+        q1, med, q3 = tukey_hinges(v)
+    else:
+        q1, med, q3 = (float(a) for a in np.percentile(v, [25.0, 50.0, 75.0], method=method))
     iqr = q3 - q1
     lo_fence, hi_fence = q1 - whisker * iqr, q3 + whisker * iqr
     inside = v[(v >= lo_fence) & (v <= hi_fence)]
@@ -850,6 +870,33 @@ def align_edges(edges: np.ndarray, resolution: float | None) -> np.ndarray:
     start = (math.floor(edges[0] / resolution + 1e-9) - 0.5) * resolution
     n = int(math.ceil((edges[-1] - start) / width - 1e-9))
     return start + width * np.arange(n + 1)
+
+
+def bin_layout(edges, rule, resolution: float | None, exact: bool = False) -> tuple[np.ndarray, dict]:
+    """The edges a histogram draws and what to say about them.
+
+    A named rule's (``"fd"``, ``"sturges"``) edges are moved onto the data's recorded grid by
+    :func:`align_edges` unless ``exact``; a count of bins is kept as asked.  The record keeps the
+    rule's own width beside the width drawn, and says in words when they differ, so a reader
+    is never told "Freedman-Diaconis" for bins that are not the rule's."""
+    edges = np.asarray(edges, dtype=float)
+    rule_width = float(edges[1] - edges[0]) if edges.size > 1 else None
+    named = isinstance(rule, str)
+    step = resolution if (named and not exact) else None
+    drawn = align_edges(edges, step)
+    width = float(drawn[1] - drawn[0]) if drawn.size > 1 else None
+    aligned = step is not None and not np.array_equal(drawn, edges)
+    name = {"fd": "Freedman-Diaconis", "sturges": "Sturges"}.get(rule, f"{rule} equal bins")
+    if aligned:
+        note = (f"aligned to the data's step of {step:g}: bin width {width:.6g} where "
+                f"{name} gives {rule_width:.6g} (edges=exact draws the rule's own edges)")
+    elif named:
+        note = f"{name}'s own edges" + (" (edges=exact)" if exact else "")
+    else:
+        note = f"{len(drawn) - 1} equal bins as asked"
+    return drawn, {"rule": str(rule), "rule_width": rule_width, "width": width,
+                   "aligned_to_step": float(step) if aligned else None,
+                   "edges": "exact" if exact or not named else "aligned", "note": note}
 
 
 def strata_slope_test_from_sums(sums: dict) -> StrataTest | None:

@@ -143,8 +143,9 @@ def load_style(name: str, styles_dir: Path | str, extra_sizes: dict | None = Non
     sheet = styles_dir / data["sheet"]
     if not sheet.is_file():
         raise FigkitError(f"house style {path} names a style sheet that does not exist", value=str(sheet))
-    sizes = dict(data["sizes"])
-    sizes.update(extra_sizes or {})
+    # A project's sizes: (config.yaml) are the presets it uses: they replace the style's, so a
+    # width the project never declared cannot pass for one.
+    sizes = dict(extra_sizes) if extra_sizes else dict(data["sizes"])
     mins, text, panel = data["minimums"], data["text"], data["panel"]
     if float(mins["text_pt"]) < 5:
         raise FigkitError(f"house style {name}: minimums.text_pt below the 5 pt absolute floor",

@@ -152,3 +152,31 @@ def test_too_dense_for_colour_says_which_colour(tmp_path):
         car = render(project, fid)
         assert car["panels"][0]["drawing"] == "translucent" and car["panels"][0]["alpha"] == MIN_ALPHA
         assert any(words in c for c in car["cautions"]), car["cautions"]
+
+
+def test_overlap_is_measured_at_the_final_panel_size(tmp_path):
+    """The grid is chosen again once the tick labels are measured (five-digit y labels are wider
+    than the first estimate): the marker-sized cells must be those of the final panels.  A
+    marker of s pt is s * 25.4 / 72 mm wide (the PostScript point, 1/72 inch); cells across a
+    panel = floor(panel width / marker width), read back from the written sidecar."""
+    import json
+
+    import matplotlib as mpl
+    from figkit.render import render
+    rng = np.random.default_rng(3)
+    n = 4000
+    df = pd.DataFrame({"x": rng.normal(size=n), "y": rng.normal(50_000, 8_000, size=n),
+                       "g": rng.choice(list("ABCD"), size=n)})
+    sheet = "id\tdataset\tchart\tx\ty\tstrata\nwide\td\tscatter\tx\ty\tg\n"
+    project = _project(tmp_path, df, sheet)
+    render(project, "wide")
+    car = json.loads((tmp_path / "results" / "figures" / "wide.json").read_text())
+    rc = mpl.rc_params_from_file(str(REPO / "figkit" / "styles" / "house.mplstyle"),
+                                 use_default_template=False)
+    marker_mm = float(rc.get("lines.markersize", 2.5)) * 25.4 / 72
+    w, h = car["layout"]["panel_mm"]
+    for p in car["panels"]:
+        cx, cy = p["cells"]
+        assert w / marker_mm - 1 < cx <= w / marker_mm + 0.01, (p["cells"], w)
+        assert h / marker_mm - 1 < cy <= h / marker_mm + 0.01, (p["cells"], h)
+    assert car["panels"][0]["figure_max_per_cell"] == max(p["max_per_cell"] for p in car["panels"])

@@ -75,7 +75,8 @@ def outputs(root: Path) -> dict[str, bytes]:
 def test_two_builds_are_byte_identical(builds):
     *roots, note = builds
     a, b = (outputs(root) for root in roots)
-    expected = {f"{fid}.{ext}" for fid in IDS for ext in ("pdf", "png", "svg", "json", "stats.csv")}
+    expected = {f"{fid}.{ext}" for fid in IDS
+                for ext in ("pdf", "png", "svg", "json", "stats.csv", "values.csv")}
     assert set(a) == set(b) == expected
     differ = sorted(name for name in a if a[name] != b[name])
     assert not differ, f"{differ}{note}"

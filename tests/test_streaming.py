@@ -187,3 +187,48 @@ def test_streamed_and_in_memory_name_the_same_filter_typo(tmp_path, monkeypatch)
     whole, streamed = _both_paths(spec, monkeypatch)
     assert whole.notes == streamed.notes and len(whole.notes) == 1
     assert "'sout'" in whole.notes[0] and "did you mean 'south'" in whole.notes[0]
+
+
+@pytest.mark.parametrize("fmt", ["csv", "parquet"])
+def test_text_rows_are_counted_in_every_chunk(tmp_path, monkeypatch, fmt):
+    """'holds text in N rows' counts every bad cell of the file, on the streamed path too, where
+    they sit in three different chunks; N is checked against pandas.to_numeric(errors='coerce')
+    on the whole column."""
+    if fmt == "parquet":
+        pytest.importorskip("pyarrow")
+    from figkit.errors import FigkitError
+    rng = np.random.default_rng(7)
+    n = 20_000
+    df = pd.DataFrame({"x": rng.normal(0, 1, n).round(3).astype(str), "y": rng.normal(0, 1, n)})
+    df.loc[[1_000, 1_001, 9_500, 18_000], "x"] = ["1,5", "abc", "2,5", "1,5"]
+    expect = int(pd.to_numeric(df["x"], errors="coerce").isna().sum())   # pandas: 4
+    (tmp_path / "data").mkdir()
+    name = f"data/t.{fmt}"
+    if fmt == "parquet":
+        df.to_parquet(tmp_path / name, row_group_size=4000)
+    else:
+        df.to_csv(tmp_path / name, index=False)
+    shutil.copytree(REPO / "figkit" / "styles", tmp_path / "styles")
+    spec = _spec(tmp_path, name, chart="histogram", x="x")
+    monkeypatch.setattr(D, "CHUNK_ROWS", 7_000)
+    monkeypatch.setattr(D.iter_chunks, "__defaults__", (7_000,))   # whatever reads the default
+    texts = []
+    for limit in (10 ** 12, 0):          # in memory, then streamed in 3 chunks
+        with pytest.raises(FigkitError) as err:
+            D.load_figure_data(spec, stream_above_bytes=limit)
+        texts.append(str(err.value))
+        assert f"holds text in {expect} rows" in texts[-1], texts[-1]
+    assert texts[0] == texts[1]
+
+
+def test_missing_values_per_field_are_the_same_on_both_paths(tmp_path, monkeypatch):
+    """Rows dropped for a missing value are counted per field alike in memory and streamed, and
+    equal pandas' isna() count over the rows that belong to a panel."""
+    path = _project(tmp_path, "csv")
+    spec = _spec(tmp_path, path.relative_to(tmp_path).as_posix(), chart="hexbins", x="x", y="y",
+                 strata="g")
+    whole, streamed = _both_paths(spec, monkeypatch)
+    df = pd.read_csv(path)
+    in_panels = df[df["g"].notna()]
+    expect = {f: int(in_panels[f].isna().sum()) for f in ("x", "y") if in_panels[f].isna().any()}
+    assert whole.missing == streamed.missing == expect and expect

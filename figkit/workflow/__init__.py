@@ -38,9 +38,20 @@ def stop_rate_timers() -> None:
     Nothing is scheduled after the end.  Called from ``onsuccess``/``onerror`` in figures.smk;
     a project Snakefile with its own handlers replaces those (Snakemake keeps one of each) and
     only loses the second.  The timer is found by the name of Snakemake's (private) callback;
-    if that name changes, nothing is stopped and nothing breaks."""
+    if that name changes, nothing is stopped and nothing breaks: any failure here is swallowed
+    (an optimisation must never fail a build).  Returns the number of timers stopped."""
     import threading
-    for t in threading.enumerate():
-        fn = getattr(t, "function", None)
-        if isinstance(t, threading.Timer) and "_schedule_reevalutation" in getattr(fn, "__qualname__", ""):
-            t.cancel()
+    stopped = 0
+    try:
+        for t in threading.enumerate():
+            fn = getattr(t, "function", None)
+            name = getattr(fn, "__qualname__", None)
+            if isinstance(t, threading.Timer) and isinstance(name, str) and RATE_TIMER_NAME in name:
+                t.cancel()
+                stopped += 1
+    except Exception:       # a changed Snakemake: degrade to doing nothing
+        return stopped
+    return stopped
+
+
+RATE_TIMER_NAME = "_schedule_reevalutation"   # Snakemake's private callback (its spelling)
