@@ -263,7 +263,31 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+class _Printable:
+    """A text stream that writes control characters as escapes (figkit.text.terminal): whatever
+    a message quotes from a data file, the terminal shows it instead of obeying it."""
+
+    def __init__(self, stream):
+        self._stream = stream
+
+    def write(self, text: str) -> int:
+        from .text import terminal
+        return self._stream.write(terminal(text))
+
+    def __getattr__(self, name):
+        return getattr(self._stream, name)
+
+
 def main(argv=None) -> int:
+    saved = sys.stdout, sys.stderr
+    sys.stdout, sys.stderr = _Printable(sys.stdout), _Printable(sys.stderr)
+    try:
+        return _main(argv)
+    finally:
+        sys.stdout, sys.stderr = saved
+
+
+def _main(argv=None) -> int:
     logging.basicConfig(format="figkit: caution: %(message)s", level=logging.WARNING)
     args = build_parser().parse_args(argv)
     os.environ.setdefault("MPLBACKEND", "Agg")

@@ -19,6 +19,7 @@ from .data import FigureData, load_figure_data
 from .errors import FigkitError
 from .sheet import Config, SheetRow, check_row, find_row, load_config, read_sheet
 from .spec import FigureSpec, build_spec, fingerprint
+from .text import shown
 
 log = logging.getLogger("figkit")
 
@@ -249,7 +250,7 @@ def _render(project: Project, row: SheetRow) -> dict:
             "colours": {"used": drawn["colours"], "min_delta_e": sep.min_delta_e},
             "min_font_pt": sizes.min_font_pt,
             "min_line_pt": sizes.min_line_pt,
-            "cautions": cautions,
+            "cautions": [shown(c) for c in cautions],   # they quote data values
             "style": {"name": spec.style.name, "files": spec.style.digest()},
             "row_sha256": P.row_sha256(row.cells),
             # The row with every setting it reads (labels, orders, colours, bands, sizes) and
@@ -339,6 +340,6 @@ def _stats_csv(lines: list[dict]) -> str:
         cells = []
         for col in STATS_COLUMNS:
             v = P.clean(line.get(col))
-            cells.append("" if v is None else v)
+            cells.append("" if v is None else shown(v) if isinstance(v, str) else v)
         w.writerow(cells)
     return buf.getvalue()

@@ -17,6 +17,7 @@ import jsonschema
 import yaml
 
 from .errors import FigkitError
+from .text import refuse_controls
 
 SCHEMA_DIR = Path(__file__).with_name("schemas")
 CONFIG_FILE = Path("config") / "config.yaml"
@@ -85,6 +86,7 @@ def validate_config(data: dict, root: Path | str = ".") -> Config:
     if errors:
         msg, fld, value, allowed = _schema_message(errors[0], sch)
         raise FigkitError(f"config.yaml: {msg}", field=fld, value=value, allowed=allowed)
+    _refuse_controls_in(data, [])
     full = _defaults(sch)
     full.update(copy.deepcopy(data))
     # The project's house style is checked once here, not once per figure row that uses it (a
@@ -95,6 +97,20 @@ def validate_config(data: dict, root: Path | str = ".") -> Config:
                           allowed=sorted(p.stem for p in styles.glob("*.yaml")) or
                           f"none found in {styles}")
     return Config(Path(root), full)
+
+
+def _refuse_controls_in(value, path: list) -> None:
+    """Settings text (field labels, orders, band names, ...) becomes labels in the figures."""
+    if isinstance(value, dict):
+        for k, v in value.items():
+            _refuse_controls_in(str(k), path + ["(key)"])
+            _refuse_controls_in(v, path + [str(k)])
+    elif isinstance(value, list):
+        for i, v in enumerate(value):
+            _refuse_controls_in(v, path + [str(i)])
+    elif isinstance(value, str):
+        refuse_controls(value, field=".".join(p for p in path if p != "(key)") or None,
+                        where="config.yaml:")
 
 
 def load_config(root: Path | str = ".") -> Config:
@@ -130,6 +146,12 @@ def check_row(number: int, cells: dict) -> SheetRow:
     full = _defaults(sch)
     full.update(cells)
     row = SheetRow(number, full)
+    try:   # a control character would reach SVG, the report or a terminal (figkit.text)
+        for name, value in cells.items():
+            refuse_controls(value, row=number, figure=cells.get("id"), field=name)
+    except FigkitError as exc:
+        row.error = exc
+        return row
     if errors:
         msg, fld, value, allowed = _schema_message(errors[0], sch)
         row.error = FigkitError(msg, row=number, figure=cells.get("id"), field=fld, value=value,

@@ -12,6 +12,7 @@ import figkit.workflow
 from figkit.errors import FigkitError
 from figkit.sheet import read_sheet, schema_path, validate_config
 from figkit.spec import build_spec, fingerprint
+from figkit.text import ReportText, shown
 
 min_version("9.0")
 
@@ -24,6 +25,7 @@ except FigkitError as exc:
 validate(config, schema_path("config"))          # passes now; fills Snakemake's config defaults
 FK_RESULTS = FK_CONFIG["results"]
 FK_FORMATS = FK_CONFIG["formats"]
+import hashlib
 import re
 from pathlib import Path
 
@@ -78,7 +80,10 @@ def _fingerprint(wildcards, files: bool = True):
         problem = ";".join(str(p) for p in (spec.data_path, *spec.style.files) if not _available(p))
     else:
         problem = ""
-    return fingerprint(row, FK_CONFIG) + (f":{problem}" if problem else "")
+    # The problem goes in as a digest: its text may quote a sheet cell, and Snakemake's report
+    # embeds params in a script element of its page.
+    digest = hashlib.sha256(problem.encode()).hexdigest()[:16] if problem else ""
+    return fingerprint(row, FK_CONFIG) + (f":{digest}" if digest else "")
 
 
 for _row in FK_ROWS:
@@ -95,7 +100,7 @@ for _row in FK_ROWS:
 _FK_OLD = sorted(p.stem for p in (Path(FK_RESULTS) / "figures").glob("*.json") if p.stem not in FK_BY_ID)
 if _FK_OLD:   # files of removed rows stay in the folder; say so once, delete nothing
     sys.stderr.write(f"figkit: {Path(FK_RESULTS) / 'figures'} holds figures no longer in the sheet: "
-                     f"{', '.join(_FK_OLD)} (delete their files if they are not wanted)\n")
+                     f"{shown(', '.join(_FK_OLD))} (delete their files if they are not wanted)\n")
 
 
 def _write_stamp(rid: str) -> None:
@@ -144,8 +149,10 @@ rule figure:
         _figure_outputs(),
     params:
         fingerprint=_fingerprint,
-        caption=lambda w: FK_BY_ID[w.id].cells.get("caption", ""),
-        chart=lambda w: FK_BY_ID[w.id].cells.get("chart", ""),
+        # Sheet text for the report's caption template: plain text there, never markup, and
+        # nothing in Snakemake's page that could end its script element (figkit.text).
+        caption=lambda w: ReportText(FK_BY_ID[w.id].cells.get("caption", "")),
+        chart=lambda w: ReportText(FK_BY_ID[w.id].cells.get("chart", "")),
     wildcard_constraints:
         id="[A-Za-z0-9][A-Za-z0-9_-]*",
     shell:
