@@ -27,7 +27,8 @@ STYLES = Path(__file__).with_name("styles")
 
 def _cmd_render(args) -> int:
     from .render import load_project, render
-    project = load_project(args.project)
+    from .workflow import settings_from_environment
+    project = load_project(args.project, settings_from_environment())
     rec = render(project, args.id)
     out = project.config.results / "figures"
     n = len(rec["panels"])

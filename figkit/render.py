@@ -17,7 +17,7 @@ from . import stats
 from .checks import enforce_minimums
 from .data import FigureData, load_figure_data
 from .errors import FigkitError
-from .sheet import Config, SheetRow, check_row, find_row, load_config, read_sheet
+from .sheet import Config, SheetRow, check_row, find_row, load_config, read_sheet, validate_config
 from .spec import FigureSpec, build_spec, fingerprint
 from .text import shown
 
@@ -31,6 +31,7 @@ STATS_COLUMNS = ["panel", "group", "n", "n_dropped", "x_mean", "y_mean", "slope"
 class Project:
     config: Config
     rows: list[SheetRow]
+    settings_from: str = "config/config.yaml"   # or "snakemake": the settings the workflow resolved
 
     @property
     def root(self) -> Path:
@@ -40,9 +41,14 @@ class Project:
         return build_spec(find_row(self.rows, figure_id), self.config)
 
 
-def load_project(root: Path | str = ".") -> Project:
-    config = load_config(root)
-    return Project(config, read_sheet(config.sheet_path))
+def load_project(root: Path | str = ".", settings: dict | None = None) -> Project:
+    """The project at ``root``; ``settings`` (a mapping as config.yaml holds) replace the file's,
+    as in a workflow job given Snakemake's resolved config (``--config``, ``--configfile``)."""
+    if settings is None:
+        config = load_config(root)
+        return Project(config, read_sheet(config.sheet_path))
+    config = validate_config(settings, root)
+    return Project(config, read_sheet(config.sheet_path), settings_from="snakemake")
 
 
 def spec_from_cells(cells: dict, project: Project | str | Path = ".") -> FigureSpec:
@@ -256,6 +262,10 @@ def _render(project: Project, row: SheetRow) -> dict:
             # The row with every setting it reads (labels, orders, colours, bands, sizes) and
             # figkit's version, as the workflow's rerun trigger sees them: preflight compares it.
             "fingerprint": fingerprint(row, project.config),
+            # Where the settings came from: config.yaml, or the config Snakemake resolved from
+            # it and --configfile / --config / a profile (the fingerprint reads the same).
+            "settings": {"from": project.settings_from,
+                         "sha256": P.settings_sha256(project.config.data)},
             "rebuild": rebuild_command(spec, results_rel),
             "versions": {**P.versions(), "font": P.font_file(spec.style.rc.get("font.family", ["DejaVu Sans"])[0]
                                                             if isinstance(spec.style.rc.get("font.family"), list)

@@ -23,6 +23,7 @@ except FigkitError as exc:
     sys.stderr.write(f"figkit: error: {exc}\n")
     raise SystemExit(2)
 validate(config, schema_path("config"))          # passes now; fills Snakemake's config defaults
+figkit.workflow.job_settings(FK_CONFIG.data)      # jobs use these, overrides and all
 FK_RESULTS = FK_CONFIG["results"]
 FK_FORMATS = FK_CONFIG["formats"]
 import hashlib
@@ -103,26 +104,33 @@ if _FK_OLD:   # files of removed rows stay in the folder; say so once, delete no
                      f"{shown(', '.join(_FK_OLD))} (delete their files if they are not wanted)\n")
 
 
-def _write_stamp(rid: str) -> None:
+def _stamp(wildcards):
     """A small file holding the row's fingerprint, rewritten only when the fingerprint changes.
     As an input it makes Snakemake rerun the figure by modification time even where Snakemake
     has no metadata for it (outputs made by `figkit render` by hand, a copied results folder).
-    Written while the workflow is read, before Snakemake looks at any file."""
-    path = Path(FK_RESULTS) / ".fingerprints" / rid
-    value = _fingerprint(type("W", (), {"id": rid})(), files=False)
-    if not path.is_file() or path.read_text(encoding="utf-8") != value:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        tmp = path.with_name(f".{path.name}.part")
-        tmp.write_text(value, encoding="utf-8")
-        tmp.replace(path)
+    Written here, when Snakemake asks for the figure's inputs and before it looks at any file,
+    and only in a run that executes jobs: a dry run (or --report, --summary) writes nothing; a
+    stale stamp then stands for its rewrite by the ``.changed`` file the rule below would make,
+    so the dry run still lists the figure."""
+    path = Path(FK_RESULTS) / ".fingerprints" / wildcards.id
+    value = _fingerprint(wildcards, files=False)
+    if path.is_file() and path.read_text(encoding="utf-8") == value:
+        return str(path)
+    if workflow.executor_plugin is None or workflow.dryrun:
+        return str(path.with_name(f"{path.name}.changed"))
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.part")
+    tmp.write_text(value, encoding="utf-8")
+    tmp.replace(path)
+    return str(path)
 
 
-for _rid in FK_TARGETS:
-    _write_stamp(_rid)
-
-
-def _stamp(wildcards):
-    return str(Path(FK_RESULTS) / ".fingerprints" / wildcards.id)
+rule figure_fingerprint_changed:
+    # Only ever scheduled by a dry run (see _stamp); a real run rewrites the stamp instead.
+    output:
+        f"{FK_RESULTS}/.fingerprints/{{id}}.changed",
+    shell:
+        "touch {output}"
 
 
 rule all_figures:
@@ -153,10 +161,14 @@ rule figure:
         # nothing in Snakemake's page that could end its script element (figkit.text).
         caption=lambda w: ReportText(FK_BY_ID[w.id].cells.get("caption", "")),
         chart=lambda w: ReportText(FK_BY_ID[w.id].cells.get("chart", "")),
+    log:
+        "logs/figures/{id}.log",
     wildcard_constraints:
         id="[A-Za-z0-9][A-Za-z0-9_-]*",
     shell:
-        f"{figkit.workflow.job_python()} -m figkit render --id {{wildcards.id}}"
+        # The job's messages go to the terminal (its one-line error) and to its log; Snakemake's
+        # bash runs with pipefail, so the job still fails when figkit does.
+        f"{figkit.workflow.job_python()} -m figkit render --id {{wildcards.id}} 2>&1 | tee {{log}}"
 
 
 onsuccess:
