@@ -29,12 +29,22 @@ def _cmd_render(args) -> int:
     from .render import load_project, render
     from .workflow import settings_from_environment
     project = load_project(args.project, settings_from_environment())
-    rec = render(project, args.id)
+    rec = render(project, args.id, granted=args.granted)
     out = project.config.results / "figures"
     n = len(rec["panels"])
     print(f"figkit: {rec['id']}: {n} panel{'' if n == 1 else 's'}, "
           f"{rec['size_mm'][0]:.0f} x {rec['size_mm'][1]:.0f} mm -> {out}/{rec['id']}.*")
     return 0
+
+
+def _granted(text: str) -> dict:
+    out = {}
+    for part in text.split(","):
+        key, _, value = part.partition("=")
+        if key.strip() not in ("mem_mb", "runtime") or not value.strip().isdigit():
+            raise argparse.ArgumentTypeError(f"expected mem_mb=N,runtime=M, got {text!r}")
+        out[key.strip()] = int(value)
+    return out
 
 
 def _cmd_lint(args) -> int:
@@ -233,6 +243,8 @@ def build_parser() -> argparse.ArgumentParser:
     r = sub.add_parser("render", help="build one figure of the sheet")
     r.add_argument("--id", required=True, help="the figure's id (sheet column 'id')")
     r.add_argument("--project", default=".", help="manuscript folder (default: here)")
+    r.add_argument("--granted", metavar="mem_mb=N,runtime=M", type=_granted,
+                   help="resources the workflow gave this job, recorded in the sidecar")
     r.set_defaults(func=_cmd_render)
     i = sub.add_parser("init", help="start a manuscript folder")
     i.add_argument("dir")

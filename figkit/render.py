@@ -167,23 +167,28 @@ def rebuild_command(spec: FigureSpec, results: str) -> str:
     return f"snakemake --cores 1 --forcerun {results}/figures/{spec.id}.json"
 
 
-def render(project: Project, figure_id: str) -> dict:
+def render(project: Project, figure_id: str, granted: dict | None = None) -> dict:
     """Build one figure's files and sidecar under ``results/figures``; return the sidecar.
-    Every mistake found on the way names the sheet row and the figure."""
+    Every mistake found on the way names the sheet row and the figure.  ``granted``: the
+    resources the workflow gave the job (mem_mb, runtime), for the sidecar."""
     row = find_row(project.rows, figure_id)
     try:
-        return _render(project, row)
+        return _render(project, row, granted)
     except FigkitError as exc:
         raise exc.at(row=row.number, figure=figure_id) from None
 
 
-def _render(project: Project, row: SheetRow) -> dict:
+def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dict:
     import matplotlib as mpl
     mpl.use("Agg", force=True)
     from .draw import build_figure
+    from .jobsize import check_ceiling, job_size
 
     spec = build_spec(row, project.config)
-    data = load_figure_data(spec, stream_above_bytes=int(project.config["stream_above_mb"] * 2 ** 20))
+    limit = int(project.config["stream_above_mb"] * 2 ** 20)
+    size = job_size(spec, limit)
+    check_ceiling(spec, size, project.config.get("max_mem_mb"))   # before reading any data
+    data = load_figure_data(spec, stream_above_bytes=limit)
     out_dir = project.config.results / "figures"
     results_rel = project.config["results"]
 
@@ -264,6 +269,9 @@ def _render(project: Project, row: SheetRow) -> dict:
             "fingerprint": fingerprint(row, project.config),
             # Where the settings came from: config.yaml, or the config Snakemake resolved from
             # it and --configfile / --config / a profile (the fingerprint reads the same).
+            # The job's size as estimated from the file (figkit.jobsize), and what the workflow
+            # granted it (the estimate at the time the workflow was read, grown on retries).
+            "resources": {**size.record(), "granted": granted},
             "settings": {"from": project.settings_from,
                          "sha256": P.settings_sha256(project.config.data)},
             "rebuild": rebuild_command(spec, results_rel),

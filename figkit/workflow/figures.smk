@@ -10,6 +10,7 @@ from snakemake.utils import min_version, validate
 import figkit
 import figkit.workflow
 from figkit.errors import FigkitError
+from figkit.jobsize import check_ceiling, job_size
 from figkit.sheet import read_sheet, schema_path, validate_config
 from figkit.spec import build_spec, fingerprint
 from figkit.text import ReportText, shown
@@ -41,13 +42,36 @@ _FK_SPECS = {}
 
 
 def _spec(rid):
-    """The row's spec, or its error, built once per workflow run (the style files are read once)."""
+    """The row's spec, or its error, built once per workflow run (the style files are read once).
+    A figure over the memory ceiling (max_mem_mb) is an error here, said before any submission;
+    its job then fails with the same line (figkit render checks the ceiling too)."""
     if rid not in _FK_SPECS:
         try:
-            _FK_SPECS[rid] = build_spec(FK_BY_ID[rid], FK_CONFIG)
+            spec = build_spec(FK_BY_ID[rid], FK_CONFIG)
+            check_ceiling(spec, _size(spec), FK_CONFIG.get("max_mem_mb"))
+            _FK_SPECS[rid] = spec
         except FigkitError as exc:
+            if FK_BY_ID[rid].error is None:
+                sys.stderr.write(f"figkit: {exc} (this figure will fail; snakemake --keep-going "
+                                 "builds the others)\n")
             _FK_SPECS[rid] = exc
     return _FK_SPECS[rid]
+
+
+def _size(spec):
+    return job_size(spec, int(FK_CONFIG["stream_above_mb"] * 2 ** 20))
+
+
+def _resource(name, grow=True):
+    """A figure job's resource from what it will read (figkit.jobsize); grown with each retry
+    (snakemake --retries N) for memory and time.  A row with an error asks for the minimum."""
+    def value(wildcards, attempt=1):
+        spec = _spec(wildcards.id)
+        size = None if isinstance(spec, FigkitError) else _size(spec)
+        base = {"mem_mb": size.mem_mb if size else 1000,
+                "runtime": size.runtime if size else 5}[name]
+        return base * attempt if grow else base
+    return value
 
 
 def _row_inputs(wildcards):
@@ -163,12 +187,18 @@ rule figure:
         chart=lambda w: ReportText(FK_BY_ID[w.id].cells.get("chart", "")),
     log:
         "logs/figures/{id}.log",
+    threads: 1
+    resources:
+        mem_mb=_resource("mem_mb"),
+        runtime=_resource("runtime"),
     wildcard_constraints:
         id="[A-Za-z0-9][A-Za-z0-9_-]*",
     shell:
         # The job's messages go to the terminal (its one-line error) and to its log; Snakemake's
         # bash runs with pipefail, so the job still fails when figkit does.
-        f"{figkit.workflow.job_python()} -m figkit render --id {{wildcards.id}} 2>&1 | tee {{log}}"
+        # What Snakemake granted goes into the sidecar (placeholders: the text stays the same).
+        f"{figkit.workflow.job_python()} -m figkit render --id {{wildcards.id}} "
+        "--granted mem_mb={resources.mem_mb},runtime={resources.runtime} 2>&1 | tee {log}"
 
 
 onsuccess:
