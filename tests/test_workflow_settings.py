@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import base64
 import hashlib
+import re
 import json
 import shutil
 from pathlib import Path
@@ -95,3 +96,64 @@ def test_results_override_builds_there(demo, tmp_path, how):
     assert car["rebuild"].endswith(f"alt/figures/{TARGET}.json")
     again = snakemake(project, f"alt/figures/{TARGET}.json", "-n", *args)
     assert "Nothing to be done" in again.stdout + again.stderr
+
+
+# ------------------------------------------------------------------ the report's numbers
+
+WALK_FIGURES = """
+const done = arguments[arguments.length - 1];
+const seen = {};
+for (const path of Object.keys(results)) {
+    ReactDOM.flushSync(() => app.showResultInfo(path));
+    const box = document.querySelector('.prose');
+    seen[path] = {
+        text: box.textContent,
+        rows: Array.from(box.querySelectorAll('tbody tr')).map(
+            r => Array.from(r.querySelectorAll('td')).map(c => c.textContent.trim())),
+        items: Array.from(box.querySelectorAll('li')).map(li => li.textContent)};
+}
+ReactDOM.flushSync(() => app.showCategory('Figures'));
+const table = Array.from(document.querySelectorAll('table tr')).map(
+    r => Array.from(r.querySelectorAll('th, td')).map(c => c.textContent.trim()));
+setTimeout(() => done({figures: seen, table: table}), 500);
+"""
+
+
+def _number(text: str) -> float:
+    return float(text.replace("−", "-").replace(",", ""))
+
+
+def test_report_shows_each_figures_numbers(built_demo, tmp_path):
+    """`snakemake --report` opened in headless Chromium: each figure's entry shows a table of its
+    panels with n, n_dropped and the line's slope with its interval, the strata comparison and
+    every caution, equal to its sidecar read back from disk; the results view lists every figure
+    with its chart kind and panel count."""
+    from browser import visit
+    project = _copy(built_demo, tmp_path / "p")
+    snakemake(project, "--report", "report.html")
+    page = visit(project / "report.html", script=WALK_FIGURES, screenshot=tmp_path / "report.png")
+    assert page.errors == []
+    cars = {p.stem: json.loads(p.read_text()) for p in (project / "results" / "figures").glob("*.json")}
+    shown = {Path(k).stem: v for k, v in page.script_result["figures"].items()}
+    assert set(shown) == set(cars)
+    for fid, car in cars.items():
+        entry = shown[fid]
+        assert len(entry["rows"]) == len(car["panels"])
+        for row, panel in zip(entry["rows"], car["panels"]):
+            assert row[0] == (panel["label"] or "all")
+            assert _number(row[1]) == panel["n"] and _number(row[2]) == panel["n_dropped"]
+            trend = panel.get("trend") or {}
+            if trend.get("kind") == "line":
+                slope, low, high = re.match(r"(\S+) \((\S+) to (\S+)\)", row[3]).groups()
+                for text, value in ((slope, trend["slope"]), (low, trend["slope_ci"][0]),
+                                    (high, trend["slope_ci"][1])):
+                    assert _number(text) == pytest.approx(value, rel=5e-3)   # 3 significant digits
+        flat = " ".join(entry["text"].split())
+        test = car.get("strata_test")
+        if test and test.get("F") is not None:
+            assert f"F({test['df_num']}, {test['df_den']})" in flat
+        assert [" ".join(i.split()) for i in entry["items"]] == [" ".join(c.split()) for c in car["cautions"]]
+    head, *rows = page.script_result["table"]
+    assert head[:3] == ["figure", "chart", "panels"]
+    assert sorted(r[:3] for r in rows) == sorted([fid, car["chart"], str(len(car["panels"]))]
+                                                 for fid, car in cars.items())

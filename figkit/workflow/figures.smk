@@ -9,6 +9,7 @@ from snakemake.utils import min_version, validate
 
 import figkit
 import figkit.workflow
+import figkit.workflow.report
 from figkit.errors import FigkitError
 from figkit.jobsize import check_ceiling, job_size
 from figkit.sheet import read_sheet, schema_path, validate_config
@@ -162,13 +163,17 @@ rule all_figures:
         [f"{FK_RESULTS}/figures/{rid}.json" for rid in FK_TARGETS],
 
 
+def _sidecar(wildcards):
+    return f"{FK_RESULTS}/figures/{wildcards.id}.json"
+
+
 def _figure_outputs():
     out = [f"{FK_RESULTS}/figures/{{id}}.json", f"{FK_RESULTS}/figures/{{id}}.stats.csv"]
     for fmt in FK_FORMATS:
         path = f"{FK_RESULTS}/figures/{{id}}.{fmt}"
         if fmt == "png":   # the HTML report (snakemake --report) shows every figure's PNG
             path = report(path, caption="report/caption.rst", category="Figures",
-                          labels=lambda w: {"figure": w.id})
+                          labels=lambda w: figkit.workflow.report.labels(_sidecar(w), w.id))
         out.append(path)
     return out
 
@@ -185,6 +190,8 @@ rule figure:
         # nothing in Snakemake's page that could end its script element (figkit.text).
         caption=lambda w: ReportText(FK_BY_ID[w.id].cells.get("caption", "")),
         chart=lambda w: ReportText(FK_BY_ID[w.id].cells.get("chart", "")),
+        # The sidecar's numbers for the report, read when the report is written.
+        numbers=lambda w: figkit.workflow.report.ReportNumbers(_sidecar(w)),
     log:
         "logs/figures/{id}.log",
     threads: 1
