@@ -23,6 +23,7 @@ from pathlib import Path
 from .errors import FigkitError
 
 STYLES = Path(__file__).with_name("styles")
+PROFILES = Path(__file__).with_name("profiles")   # Snakemake profiles: local, slurm, cluster-generic
 
 
 def _cmd_render(args) -> int:
@@ -224,13 +225,15 @@ def _cmd_init(args) -> int:
     (target / "config" / "figures.tsv").write_text(
         "".join("\t".join(r) + "\n" for r in SCAFFOLD_SHEET), encoding="utf-8")
     shutil.copytree(STYLES, target / "styles")
+    shutil.copytree(PROFILES, target / "profiles")
     written = write_demo_data(target / "data", scale=args.scale)
     for name in ("sites",):
         if name in written:
             written[name].unlink()   # the starter sheet uses readings and surveys only
     print(f"figkit: started a manuscript folder at {target}\n"
           f"  edit config/figures.tsv (one row per figure) and config/config.yaml, then run:\n"
-          f"  cd {target} && snakemake --cores 2")
+          f"  cd {target} && snakemake --cores 2\n"
+          f"  (on a cluster: snakemake --profile profiles/slurm or profiles/cluster-generic)")
     return 0
 
 
