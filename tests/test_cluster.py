@@ -82,3 +82,26 @@ def test_init_installs_the_profiles(tmp_path):
         assert cmp.left_only == [] and cmp.right_only == [] and cmp.diff_files == [], name
     dry = snakemake(target, "--profile", "profiles/local", "-n")
     assert "Using profile profiles/local" in dry.stdout + dry.stderr
+
+
+def test_a_job_command_stands_alone(tmp_path):
+    """The command Snakemake prints for a figure job holds no path of this machine and runs in a
+    fresh environment (`env -i`, only PATH with the environment's bin folder first, and HOME), as
+    on another node: FIGKIT_PYTHON unset, the shell falls back to python3 from PATH."""
+    import re
+    project = copy_project(tmp_path / "alone")
+    make_demo_data(project)
+    proc = snakemake(project, "-n", "-p", "results/figures/temperature-histogram.json")
+    (command,) = [l.split("Shell command: ", 1)[1] for l in proc.stdout.splitlines()
+                  if "figkit render" in l and l.startswith("Shell command: ")]
+    assert str(project) not in command and sys.executable not in command
+    assert not re.search(r"(^|\s)/", command)       # no absolute path at all
+    env = {"PATH": f"{Path(sys.executable).parent}{os.pathsep}/usr/bin{os.pathsep}/bin",
+           "HOME": os.environ.get("HOME", str(tmp_path))}
+    (project / "logs" / "figures").mkdir(parents=True)
+    run = subprocess.run(["env", "-i", *(f"{k}={v}" for k, v in env.items()), "bash", "-c",
+                          f"set -euo pipefail; {command}"], cwd=project, capture_output=True, text=True)
+    assert run.returncode == 0, run.stdout + run.stderr
+    car = json.loads((project / "results" / "figures" / "temperature-histogram.json").read_text())
+    assert car["settings"]["from"] == "config/config.yaml"     # no workflow around it
+    assert car["resources"]["granted"]["mem_mb"] > 0

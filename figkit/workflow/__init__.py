@@ -22,15 +22,17 @@ def demo_rules() -> str:
 
 
 def job_python() -> str:
-    """The interpreter for a rule's shell command, as the text ``"$FIGKIT_PYTHON"``.
+    """The interpreter for a rule's shell command: ``"${FIGKIT_PYTHON:-python3}"`` once Snakemake
+    has formatted the command (the braces are doubled here for that formatting).
 
     Jobs must run figkit from the interpreter that runs Snakemake (where figkit is installed),
     but Snakemake reruns a job whose command text changed, so the interpreter's path must not
     be in that text: ``python -m snakemake`` and ``.venv/bin/snakemake`` name the same
     interpreter by different paths, and a co-author's clone has its own.  The path goes into
-    the environment the jobs inherit instead."""
+    the environment the jobs inherit instead.  Where the variable is unset (the command run by
+    hand in a fresh login shell), the shell falls back to ``python3`` from PATH."""
     os.environ[PYTHON_VAR] = sys.executable
-    return f'"${PYTHON_VAR}"'
+    return f'"${{{{{PYTHON_VAR}:-python3}}}}"'
 
 
 def job_settings(settings: dict) -> None:
