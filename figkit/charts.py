@@ -21,6 +21,7 @@ from .aggregate import HexGrid, padded_range
 from .data import FigureData, Panel
 from .spec import FigureSpec
 from .style import pt_to_mm
+from .text import shown
 
 INK = "#2B2F33"         # trend lines, medians, text on light tiles
 NEUTRAL = "#4D7FA6"     # single-colour charts (histogram, box, violin, density without colour)
@@ -409,7 +410,7 @@ def draw_box(ax, panel: Panel, ctx: Context) -> dict:
         b = stats.box_stats(part[spec.y].to_numpy(dtype=float), whisker=spec.options.get("whisker", 1.5),
                             method=method)
         bxp.append({"med": b.median, "q1": b.q1, "q3": b.q3, "whislo": b.whisker_low,
-                    "whishi": b.whisker_high, "fliers": b.outliers, "label": str(level), "_pos": i})
+                    "whishi": b.whisker_high, "fliers": b.outliers, "label": shown(level), "_pos": i})
         groups.append({"group": level, "n": b.n, "q1": b.q1, "median": b.median, "q3": b.q3,
                        "whisker_low": b.whisker_low, "whisker_high": b.whisker_high,
                        "outliers": int(len(b.outliers))})
@@ -467,7 +468,7 @@ def _bandwidth_rule(text: str):
 
 def _category_axis(ax, levels: list) -> None:
     ax.set_xticks(range(len(levels)))
-    ax.set_xticklabels([str(v) for v in levels])
+    ax.set_xticklabels([shown(v) for v in levels])
     ax.set_xlim(-0.6, len(levels) - 0.4)
     ax.grid(False, axis="x")
 
@@ -655,9 +656,9 @@ def draw_tiles(ax, panel: Panel, ctx: Context) -> dict:
                 ax.text(j, i, f"{mat[i, j]:.0f}", ha="center", va="center", fontsize=fontsize,
                         color=INK if light else "white", zorder=3))
     ax.set_xticks(range(len(xl)))
-    ax.set_xticklabels([str(v) for v in xl])
+    ax.set_xticklabels([shown(v) for v in xl])
     ax.set_yticks(range(len(yl)))
-    ax.set_yticklabels([str(v) for v in yl])
+    ax.set_yticklabels([shown(v) for v in yl])
     ax.set_xlim(-0.5, len(xl) - 0.5)
     ax.set_ylim(len(yl) - 0.5, -0.5)   # first level on top, as a table reads
     ax.grid(False)

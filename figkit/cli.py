@@ -27,17 +27,29 @@ from pathlib import Path
 from .errors import FigkitError
 
 STYLES = Path(__file__).with_name("styles")
+PROFILES = Path(__file__).with_name("profiles")   # Snakemake profiles: local, slurm, cluster-generic
 
 
 def _cmd_render(args) -> int:
     from .render import load_project, render
-    project = load_project(args.project)
-    rec = render(project, args.id)
+    from .workflow import settings_from_environment
+    project = load_project(args.project, settings_from_environment())
+    rec = render(project, args.id, granted=args.granted)
     out = project.config.results / "figures"
     n = len(rec["panels"])
     print(f"figkit: {rec['id']}: {n} panel{'' if n == 1 else 's'}, "
           f"{rec['size_mm'][0]:.0f} x {rec['size_mm'][1]:.0f} mm -> {out}/{rec['id']}.*")
     return 0
+
+
+def _granted(text: str) -> dict:
+    out = {}
+    for part in text.split(","):
+        key, _, value = part.partition("=")
+        if key.strip() not in ("mem_mb", "runtime") or not value.strip().isdigit():
+            raise argparse.ArgumentTypeError(f"expected mem_mb=N,runtime=M, got {text!r}")
+        out[key.strip()] = int(value)
+    return out
 
 
 def _cmd_lint(args) -> int:
@@ -347,13 +359,15 @@ def _cmd_init(args) -> int:
     (target / "config" / "figures.tsv").write_text(
         "".join("\t".join(r) + "\n" for r in SCAFFOLD_SHEET), encoding="utf-8")
     shutil.copytree(STYLES, target / "styles")
+    shutil.copytree(PROFILES, target / "profiles")
     written = write_demo_data(target / "data", scale=args.scale)
     for name in ("sites",):
         if name in written:
             written[name].unlink()   # the starter sheet uses readings and surveys only
     print(f"figkit: started a manuscript folder at {target}\n"
           f"  edit config/figures.tsv (one row per figure) and config/config.yaml, then run:\n"
-          f"  cd {target} && snakemake --cores 2")
+          f"  cd {target} && snakemake --cores 2\n"
+          f"  (on a cluster: snakemake --profile profiles/slurm or profiles/cluster-generic)")
     return 0
 
 
@@ -373,6 +387,8 @@ def build_parser() -> argparse.ArgumentParser:
     r = sub.add_parser("render", help="build one figure of the sheet", formatter_class=_Fmt)
     r.add_argument("--id", required=True, help="the figure's id (sheet column 'id')")
     r.add_argument("--project", default=".", help="manuscript folder (default: here)")
+    r.add_argument("--granted", metavar="mem_mb=N,runtime=M", type=_granted,
+                   help="resources the workflow gave this job, recorded in the sidecar")
     r.set_defaults(func=_cmd_render)
     r.epilog = "example:\n  figkit render --id oxygen-temperature --project ~/papers/my-paper"
     i = sub.add_parser("init", help="start a manuscript folder", formatter_class=_Fmt,
@@ -462,7 +478,31 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+class _Printable:
+    """A text stream that writes control characters as escapes (figkit.text.terminal): whatever
+    a message quotes from a data file, the terminal shows it instead of obeying it."""
+
+    def __init__(self, stream):
+        self._stream = stream
+
+    def write(self, text: str) -> int:
+        from .text import terminal
+        return self._stream.write(terminal(text))
+
+    def __getattr__(self, name):
+        return getattr(self._stream, name)
+
+
 def main(argv=None) -> int:
+    saved = sys.stdout, sys.stderr
+    sys.stdout, sys.stderr = _Printable(sys.stdout), _Printable(sys.stderr)
+    try:
+        return _main(argv)
+    finally:
+        sys.stdout, sys.stderr = saved
+
+
+def _main(argv=None) -> int:
     logging.basicConfig(format="figkit: caution: %(message)s", level=logging.WARNING)
     args = build_parser().parse_args(argv)
     os.environ.setdefault("MPLBACKEND", "Agg")

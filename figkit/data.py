@@ -17,6 +17,7 @@ import pandas as pd
 from .errors import FigkitError
 from .provenance import sha256_file  # noqa: F401  (also figkit.data.sha256_file, as before)
 from .spec import CATEGORY, NUMERIC, Banding, FigureSpec, check_columns
+from .text import shown
 
 
 def _reader(path: Path):
@@ -365,14 +366,14 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     elif len(spec.strata) == 1:
         fld = spec.strata[0]
         codes, levels_ = _factorized(frame[fld], fld, spec)
-        keys_list, labels, cells = [{fld: v} for v in levels_], [str(v) for v in levels_], None
+        keys_list, labels, cells = [{fld: v} for v in levels_], [shown(v) for v in levels_], None
     else:
         rf, cf = spec.strata
         rcodes, rlev = _factorized(frame[rf], rf, spec)
         ccodes, clev = _factorized(frame[cf], cf, spec)
         codes = rcodes * len(clev) + ccodes
         keys_list = [{rf: rv, cf: cv} for rv in rlev for cv in clev]
-        labels = [f"{rv} / {cv}" for rv in rlev for cv in clev]
+        labels = [f"{shown(rv)} / {shown(cv)}" for rv in rlev for cv in clev]
         cells = [(i, j) for i in range(len(rlev)) for j in range(len(clev))]
         grid_levels = (rlev, clev)
     k = len(keys_list)
@@ -602,7 +603,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     panels = []
     for i, keys in enumerate(keys_list):
         tally = tallies[tuple(keys.get(f) for f in strata)]
-        label = " / ".join(str(v) for v in keys.values())
+        label = " / ".join(shown(v) for v in keys.values())
         frame = pd.DataFrame({f: pd.Series(dtype=float) for f in used})
         panels.append(Panel(label, {k: _json_value(v) for k, v in keys.items()}, frame,
                             tally.n_dropped, cells[i] if cells else None, tally=tally))

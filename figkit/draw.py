@@ -20,6 +20,7 @@ from .data import FigureData
 from .errors import FigkitError
 from .spec import FigureSpec
 from .style import mm_to_in, pt_to_mm
+from .text import shown
 
 HEADER_RULE = "#9AA1A9"
 ELLIPSIS = "…"
@@ -336,13 +337,13 @@ def _legend_handles(ctx: Context, spec: FigureSpec) -> list:
     if spec.chart.name == "scatter":
         markers = cue_markers(ctx)
         return [Line2D([], [], linestyle="none", marker=markers.get(level, "o"), markersize=3.5,
-                       markerfacecolor=hexc, markeredgewidth=0, label=str(level))
+                       markerfacecolor=hexc, markeredgewidth=0, label=shown(level))
                 for level, hexc in ctx.colours.items()]
     dashes = cue_dashes(ctx)
     if dashes:
-        return [Line2D([], [], color=hexc, linewidth=1.0, linestyle=dashes[level], label=str(level))
+        return [Line2D([], [], color=hexc, linewidth=1.0, linestyle=dashes[level], label=shown(level))
                 for level, hexc in ctx.colours.items()]
-    return [Patch(facecolor=hexc, edgecolor="none", label=str(level))
+    return [Patch(facecolor=hexc, edgecolor="none", label=shown(level))
             for level, hexc in ctx.colours.items()]
 
 
@@ -374,7 +375,7 @@ def _panel_title(panel, spec: FigureSpec) -> str:
     # A bare number says nothing on its own: name the field beside it.
     if isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, bool):
         return f"{label} {value:g}" if isinstance(value, float) else f"{label} {value}"
-    return str(value)
+    return shown(value)
 
 
 def panel_letter(i: int, case: str) -> str:
@@ -457,7 +458,18 @@ def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
     job.draw_grid_headers()
     job.draw_axis_titles()
     job.check_drawn()
+    _escape_left_controls(job.fig)
     return job.fig, job.record()
+
+
+def _escape_left_controls(fig) -> None:
+    """Labels are escaped where they are made (figkit.text.shown); this catches any text that was
+    not, since one control character makes the SVG ill-formed XML."""
+    from matplotlib.text import Text
+    from .text import CONTROLS
+    for t in fig.findobj(Text):
+        if CONTROLS.search(t.get_text()):
+            t.set_text(shown(t.get_text()))
 
 
 class _Assembly:
@@ -488,7 +500,7 @@ class _Assembly:
         # Tick label sizes guessed for the first choice of grid, before anything is drawn.
         self.est_y = max(_text_width_mm("0000", st.tick_pt), 5.0)
         if spec.chart.y == "categorical":
-            self.est_y = max(_text_width_mm(str(v), st.tick_pt) for v in data.levels.get(spec.y, ["x"]))
+            self.est_y = max(_text_width_mm(shown(v), st.tick_pt) for v in data.levels.get(spec.y, ["x"]))
         self.est_x = L.text_mm(st.tick_pt)
         # Lines given to panel titles and axis titles; grown when the measured text needs two.
         self.title_lines = 1 if self.titles else 0
@@ -638,7 +650,7 @@ class _Assembly:
         """The texts whose room the layout measures: panel titles (the letter leads), the
         measurers for titles and axis titles, and category labels in their first arrangement."""
         spec, st = self.spec, self.st
-        self.category_texts = [str(v) for v in self.ctx.shared.get("xlevels", [])]
+        self.category_texts = [shown(v) for v in self.ctx.shared.get("xlevels", [])]
         self.category_x = bool(self.category_texts) and spec.chart.x == "categorical"
         if self.titles:
             self.title_texts = [_panel_title(p, spec) if not spec.grid else "" for p in self.panels]
@@ -908,7 +920,7 @@ class _Assembly:
         top_of_grid = b0 + h0
         for j, cv in enumerate(cl):
             l, b, w, h = L.panel_box(grid, j, m, H)
-            fig.text(fx(l + w / 2), fy(top_of_grid + 0.6), _shorten_middle(title_w, str(cv), w),
+            fig.text(fx(l + w / 2), fy(top_of_grid + 0.6), _shorten_middle(title_w, shown(cv), w),
                      fontsize=st.title_pt, ha="center", va="bottom")
             if not self.framed():   # a framed panel's edge already rules its header off
                 fig.add_artist(_rule(fig, fx(l), fx(l + w), fy(top_of_grid + 0.4)))
@@ -920,7 +932,7 @@ class _Assembly:
         for i, rv in enumerate(rl):
             l, b, w, h = L.panel_box(grid, i * grid.cols + grid.cols - 1, m, H)
             right_edge = l + w
-            fig.text(fx(l + w + 0.6), fy(b + h / 2), _shorten_middle(title_w, str(rv), h),
+            fig.text(fx(l + w + 0.6), fy(b + h / 2), _shorten_middle(title_w, shown(rv), h),
                      fontsize=st.title_pt, rotation=270, ha="center", va="bottom",
                      rotation_mode="anchor")
             if not self.framed():

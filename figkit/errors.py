@@ -51,7 +51,8 @@ class FigkitError(Exception):
             allowed = self.allowed if isinstance(self.allowed, str) else ", ".join(
                 str(a) for a in self.allowed)
             text += f"; allowed: {allowed}"
-        return " ".join(text.split())  # always one line
+        from .text import shown    # a cell's control characters must not reach the terminal
+        return shown(" ".join(text.split()))  # always one line
 
     def at(self, *, row: int | None = None, figure: str | None = None,
            field: str | None = None) -> "FigkitError":

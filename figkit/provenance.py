@@ -62,6 +62,11 @@ def row_sha256(cells: dict) -> str:
     return sha256_text(json.dumps(cells, sort_keys=True, ensure_ascii=False))
 
 
+def settings_sha256(settings: dict) -> str:
+    """The sidecar's ``settings.sha256``: SHA-256 of the settings (defaults filled) as sorted JSON."""
+    return sha256_text(json.dumps(settings, sort_keys=True, ensure_ascii=False, default=str))
+
+
 def clean(value):
     """JSON-ready copy: numpy scalars to Python, NaN/inf to None, floats rounded to 10 significant
     digits so the sidecar is stable across platforms' last-bit differences."""

@@ -18,6 +18,7 @@ from .data import FigureData, load_figure_data
 from .errors import FigkitError
 from .sheet import Project, SheetRow, check_row, find_row, load_project  # noqa: F401 (API)
 from .spec import FigureSpec, build_spec, fingerprint
+from .text import shown
 
 log = logging.getLogger("figkit")
 
@@ -191,26 +192,31 @@ def rebuild_command(spec: FigureSpec, results: str) -> str:
     return f"snakemake --cores 1 --forcerun {results}/figures/{spec.id}.json"
 
 
-def render(project: Project, figure_id: str) -> dict:
+def render(project: Project, figure_id: str, granted: dict | None = None) -> dict:
     """Build one figure's files and sidecar under ``results/figures``; return the sidecar.
-    Every mistake found on the way names the sheet row and the figure."""
+    Every mistake found on the way names the sheet row and the figure.  ``granted``: the
+    resources the workflow gave the job (mem_mb, runtime), for the sidecar."""
     from . import progress
     row = find_row(project.rows, figure_id)
     try:
         with progress.job(figure_id):
-            return _render(project, row)
+            return _render(project, row, granted)
     except FigkitError as exc:
         raise exc.at(row=row.number, figure=figure_id) from None
 
 
-def _render(project: Project, row: SheetRow) -> dict:
+def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dict:
     import matplotlib as mpl
     mpl.use("Agg", force=True)
     from . import progress
     from .draw import build_figure
+    from .jobsize import check_ceiling, job_size
 
     spec = build_spec(row, project.config)
-    data = load_figure_data(spec, stream_above_bytes=int(project.config["stream_above_mb"] * 2 ** 20))
+    limit = int(project.config["stream_above_mb"] * 2 ** 20)
+    size = job_size(spec, limit)
+    check_ceiling(spec, size, project.config.get("max_mem_mb"))   # before reading any data
+    data = load_figure_data(spec, stream_above_bytes=limit)
     out_dir = project.config.results / "figures"
     results_rel = project.config["results"]
 
@@ -286,12 +292,19 @@ def _render(project: Project, row: SheetRow) -> dict:
             "colours": {"used": drawn["colours"], "min_delta_e": sep.min_delta_e},
             "min_font_pt": sizes.min_font_pt,
             "min_line_pt": sizes.min_line_pt,
-            "cautions": cautions,
+            "cautions": [shown(c) for c in cautions],   # they quote data values
             "style": {"name": spec.style.name, "files": spec.style.digest()},
             "row_sha256": P.row_sha256(row.cells),
             # The row with every setting it reads (labels, orders, colours, bands, sizes) and
             # figkit's version, as the workflow's rerun trigger sees them: preflight compares it.
             "fingerprint": fingerprint(row, project.config),
+            # Where the settings came from: config.yaml, or the config Snakemake resolved from
+            # it and --configfile / --config / a profile (the fingerprint reads the same).
+            # The job's size as estimated from the file (figkit.jobsize), and what the workflow
+            # granted it (the estimate at the time the workflow was read, grown on retries).
+            "resources": {**size.record(), "granted": granted},
+            "settings": {"from": project.settings_from,
+                         "sha256": P.settings_sha256(project.config.data)},
             "rebuild": rebuild_command(spec, results_rel),
             "versions": {**P.versions(), "font": P.font_file(spec.style.rc.get("font.family", ["DejaVu Sans"])[0]
                                                             if isinstance(spec.style.rc.get("font.family"), list)
@@ -387,6 +400,6 @@ def _stats_csv(lines: list[dict]) -> str:
         cells = []
         for col in STATS_COLUMNS:
             v = P.clean(line.get(col))
-            cells.append("" if v is None else v)
+            cells.append("" if v is None else shown(v) if isinstance(v, str) else v)
         w.writerow(cells)
     return buf.getvalue()

@@ -17,6 +17,7 @@ import jsonschema
 import yaml
 
 from .errors import FigkitError, did_you_mean
+from .text import refuse_controls
 
 SCHEMA_DIR = Path(__file__).with_name("schemas")
 CONFIG_FILE = Path("config") / "config.yaml"
@@ -87,6 +88,7 @@ def validate_config(data: dict, root: Path | str = ".") -> Config:
     if errors:
         msg, fld, value, allowed = _schema_message(errors[0], sch)
         raise FigkitError(f"config.yaml: {msg}", field=fld, value=value, allowed=allowed)
+    _refuse_controls_in(data, [])
     full = _defaults(sch)
     full.update(copy.deepcopy(data))
     # The project's house style is checked once here, not once per figure row that uses it (a
@@ -101,6 +103,20 @@ def validate_config(data: dict, root: Path | str = ".") -> Config:
                           allowed=sorted(p.stem for p in styles.glob("*.yaml")) or
                           f"none found in {styles}")
     return Config(Path(root), full)
+
+
+def _refuse_controls_in(value, path: list) -> None:
+    """Settings text (field labels, orders, band names, ...) becomes labels in the figures."""
+    if isinstance(value, dict):
+        for k, v in value.items():
+            _refuse_controls_in(str(k), path + ["(key)"])
+            _refuse_controls_in(v, path + [str(k)])
+    elif isinstance(value, list):
+        for i, v in enumerate(value):
+            _refuse_controls_in(v, path + [str(i)])
+    elif isinstance(value, str):
+        refuse_controls(value, field=".".join(p for p in path if p != "(key)") or None,
+                        where="config.yaml:")
 
 
 def load_config(root: Path | str = ".") -> Config:
@@ -137,6 +153,12 @@ def check_row(number: int, cells: dict) -> SheetRow:
     full = _defaults(sch)
     full.update(cells)
     row = SheetRow(number, full, given=frozenset(cells))
+    try:   # a control character would reach SVG, the report or a terminal (figkit.text)
+        for name, value in cells.items():
+            refuse_controls(value, row=number, figure=cells.get("id"), field=name)
+    except FigkitError as exc:
+        row.error = exc
+        return row
     if errors:
         msg, fld, value, allowed = _schema_message(errors[0], sch)
         row.error = FigkitError(msg, row=number, figure=cells.get("id"), field=fld, value=value,
@@ -221,6 +243,7 @@ class Project:
     check, snapshot) start without importing pandas or matplotlib."""
     config: Config
     rows: list[SheetRow]
+    settings_from: str = "config/config.yaml"   # or "snakemake": the settings the workflow resolved
 
     @property
     def root(self) -> Path:
@@ -231,6 +254,11 @@ class Project:
         return build_spec(find_row(self.rows, figure_id), self.config)
 
 
-def load_project(root: Path | str = ".") -> Project:
-    config = load_config(root)
-    return Project(config, read_sheet(config.sheet_path))
+def load_project(root: Path | str = ".", settings: dict | None = None) -> Project:
+    """The project at ``root``; ``settings`` (a mapping as config.yaml holds) replace the file's,
+    as in a workflow job given Snakemake's resolved config (``--config``, ``--configfile``)."""
+    if settings is None:
+        config = load_config(root)
+        return Project(config, read_sheet(config.sheet_path))
+    config = validate_config(settings, root)
+    return Project(config, read_sheet(config.sheet_path), settings_from="snakemake")

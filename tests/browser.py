@@ -26,6 +26,7 @@ class PageVisit:
     texts: dict = field(default_factory=dict)  # CSS selector -> [textContent of each match]
     hooks: dict = field(default_factory=dict)  # window property -> its value after load
     screenshot: Path | None = None
+    script_result: object = None             # what ``script`` passed to its callback
 
     @property
     def errors(self) -> list[dict]:
@@ -41,10 +42,13 @@ def require_browser() -> None:
 
 def visit(page: Path, *, screenshot: Path | None = None, selectors: tuple[str, ...] = (),
           hooks: tuple[str, ...] = (), width: int = 1400, height: int = 1000,
-          full_page: bool = True) -> PageVisit:
+          full_page: bool = True, script: str | None = None) -> PageVisit:
     """Load ``page`` from ``file://``, wait until the document and its images are loaded, and
     collect what the browser saw.  ``hooks`` names ``window`` properties to read back (a test
-    plants e.g. ``window.__pwned`` in hostile text and checks that it stays unset)."""
+    plants e.g. ``window.__pwned`` in hostile text and checks that it stays unset).  ``script``,
+    run after load and before anything is read back, is asynchronous JavaScript (WebDriver's
+    Execute Async Script): it walks the page as a reader would and passes what it saw to its
+    last argument, the callback; that value is ``script_result``."""
     require_browser()
     from selenium import webdriver
     from selenium.webdriver.chrome.service import Service
@@ -71,6 +75,10 @@ def visit(page: Path, *, screenshot: Path | None = None, selectors: tuple[str, .
             "return Array.from(document.images).map(i => ({src: i.getAttribute('src'), "
             "complete: i.complete, natural_width: i.naturalWidth, "
             "natural_height: i.naturalHeight}))")
+        walked = None
+        if script is not None:
+            driver.set_script_timeout(60)
+            walked = driver.execute_async_script(script)
         texts = {sel: driver.execute_script(
             "return Array.from(document.querySelectorAll(arguments[0]))"
             ".map(e => e.textContent)", sel) for sel in selectors}
@@ -87,7 +95,7 @@ def visit(page: Path, *, screenshot: Path | None = None, selectors: tuple[str, .
             shot = screenshot
         console = [{"level": e.get("level"), "message": e.get("message")}
                    for e in driver.get_log("browser")]
-        return PageVisit(url, console, images, texts, got, shot)
+        return PageVisit(url, console, images, texts, got, shot, walked)
     finally:
         driver.quit()
         shutil.rmtree(profile, ignore_errors=True)

@@ -1,5 +1,6 @@
 """The Snakemake rules that ship with figkit, so any manuscript folder builds with the installed
 package and copies none of its code: its Snakefile includes :func:`rules`."""
+import json
 import os
 import sys
 from pathlib import Path
@@ -7,6 +8,7 @@ from pathlib import Path
 HERE = Path(__file__).parent
 
 PYTHON_VAR = "FIGKIT_PYTHON"
+SETTINGS_VAR = "FIGKIT_SETTINGS"
 
 
 def rules() -> str:
@@ -20,15 +22,45 @@ def demo_rules() -> str:
 
 
 def job_python() -> str:
-    """The interpreter for a rule's shell command, as the text ``"$FIGKIT_PYTHON"``.
+    """The interpreter for a rule's shell command: ``"${FIGKIT_PYTHON:-python3}"`` once Snakemake
+    has formatted the command (the braces are doubled here for that formatting).
 
     Jobs must run figkit from the interpreter that runs Snakemake (where figkit is installed),
     but Snakemake reruns a job whose command text changed, so the interpreter's path must not
     be in that text: ``python -m snakemake`` and ``.venv/bin/snakemake`` name the same
     interpreter by different paths, and a co-author's clone has its own.  The path goes into
-    the environment the jobs inherit instead."""
+    the environment the jobs inherit instead.  Where the variable is unset (the command run by
+    hand in a fresh login shell), the shell falls back to ``python3`` from PATH."""
     os.environ[PYTHON_VAR] = sys.executable
-    return f'"${PYTHON_VAR}"'
+    return f'"${{{{{PYTHON_VAR}:-python3}}}}"'
+
+
+def job_settings(settings: dict) -> None:
+    """Hand the settings Snakemake resolved (config.yaml, then ``--configfile``, ``--config`` and
+    a profile's ``config:``) to every figure job, which would otherwise read config.yaml again.
+
+    They travel in the environment the jobs inherit, not in the command text (a changed command
+    reruns a job, and overrides are already in each figure's fingerprint).  A job on a cluster
+    node runs under a Snakemake that reads the workflow again with the same overrides, so its
+    environment gets the same settings there."""
+    os.environ[SETTINGS_VAR] = json.dumps(settings, sort_keys=True, default=str)
+
+
+def settings_from_environment() -> dict | None:
+    """The settings a workflow job was given (:func:`job_settings`), or None outside a workflow."""
+    text = os.environ.get(SETTINGS_VAR)
+    if not text:
+        return None
+    from ..errors import FigkitError
+    try:
+        value = json.loads(text)
+    except ValueError:
+        raise FigkitError(f"the environment variable {SETTINGS_VAR} is not JSON (it is set by "
+                          "figkit's Snakemake rules; unset it to read config/config.yaml)") from None
+    if not isinstance(value, dict):
+        raise FigkitError(f"the environment variable {SETTINGS_VAR} must hold a JSON object",
+                          value=type(value).__name__)
+    return value
 
 
 def stop_rate_timers() -> None:

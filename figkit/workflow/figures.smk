@@ -9,9 +9,12 @@ from snakemake.utils import min_version, validate
 
 import figkit
 import figkit.workflow
+import figkit.workflow.report
 from figkit.errors import FigkitError
+from figkit.jobsize import check_ceiling, job_size
 from figkit.sheet import read_sheet, schema_path, validate_config
 from figkit.spec import build_spec, fingerprint
+from figkit.text import ReportText, shown
 
 min_version("9.0")
 
@@ -22,8 +25,10 @@ except FigkitError as exc:
     sys.stderr.write(f"figkit: error: {exc}\n")
     raise SystemExit(2)
 validate(config, schema_path("config"))          # passes now; fills Snakemake's config defaults
+figkit.workflow.job_settings(FK_CONFIG.data)      # jobs use these, overrides and all
 FK_RESULTS = FK_CONFIG["results"]
 FK_FORMATS = FK_CONFIG["formats"]
+import hashlib
 import re
 from pathlib import Path
 
@@ -38,13 +43,36 @@ _FK_SPECS = {}
 
 
 def _spec(rid):
-    """The row's spec, or its error, built once per workflow run (the style files are read once)."""
+    """The row's spec, or its error, built once per workflow run (the style files are read once).
+    A figure over the memory ceiling (max_mem_mb) is an error here, said before any submission;
+    its job then fails with the same line (figkit render checks the ceiling too)."""
     if rid not in _FK_SPECS:
         try:
-            _FK_SPECS[rid] = build_spec(FK_BY_ID[rid], FK_CONFIG)
+            spec = build_spec(FK_BY_ID[rid], FK_CONFIG)
+            check_ceiling(spec, _size(spec), FK_CONFIG.get("max_mem_mb"))
+            _FK_SPECS[rid] = spec
         except FigkitError as exc:
+            if FK_BY_ID[rid].error is None:
+                sys.stderr.write(f"figkit: {exc} (this figure will fail; snakemake --keep-going "
+                                 "builds the others)\n")
             _FK_SPECS[rid] = exc
     return _FK_SPECS[rid]
+
+
+def _size(spec):
+    return job_size(spec, int(FK_CONFIG["stream_above_mb"] * 2 ** 20))
+
+
+def _resource(name, grow=True):
+    """A figure job's resource from what it will read (figkit.jobsize); grown with each retry
+    (snakemake --retries N) for memory and time.  A row with an error asks for the minimum."""
+    def value(wildcards, attempt=1):
+        spec = _spec(wildcards.id)
+        size = None if isinstance(spec, FigkitError) else _size(spec)
+        base = {"mem_mb": size.mem_mb if size else 1000,
+                "runtime": size.runtime if size else 5}[name]
+        return base * attempt if grow else base
+    return value
 
 
 def _row_inputs(wildcards):
@@ -78,7 +106,10 @@ def _fingerprint(wildcards, files: bool = True):
         problem = ";".join(str(p) for p in (spec.data_path, *spec.style.files) if not _available(p))
     else:
         problem = ""
-    return fingerprint(row, FK_CONFIG) + (f":{problem}" if problem else "")
+    # The problem goes in as a digest: its text may quote a sheet cell, and Snakemake's report
+    # embeds params in a script element of its page.
+    digest = hashlib.sha256(problem.encode()).hexdigest()[:16] if problem else ""
+    return fingerprint(row, FK_CONFIG) + (f":{digest}" if digest else "")
 
 
 for _row in FK_ROWS:
@@ -95,34 +126,45 @@ for _row in FK_ROWS:
 _FK_OLD = sorted(p.stem for p in (Path(FK_RESULTS) / "figures").glob("*.json") if p.stem not in FK_BY_ID)
 if _FK_OLD:   # files of removed rows stay in the folder; say so once, delete nothing
     sys.stderr.write(f"figkit: {Path(FK_RESULTS) / 'figures'} holds figures no longer in the sheet: "
-                     f"{', '.join(_FK_OLD)} (delete their files if they are not wanted)\n")
-
-
-def _write_stamp(rid: str) -> None:
-    """A small file holding the row's fingerprint, rewritten only when the fingerprint changes.
-    As an input it makes Snakemake rerun the figure by modification time even where Snakemake
-    has no metadata for it (outputs made by `figkit render` by hand, a copied results folder).
-    Written while the workflow is read, before Snakemake looks at any file."""
-    path = Path(FK_RESULTS) / ".fingerprints" / rid
-    value = _fingerprint(type("W", (), {"id": rid})(), files=False)
-    if not path.is_file() or path.read_text(encoding="utf-8") != value:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        tmp = path.with_name(f".{path.name}.part")
-        tmp.write_text(value, encoding="utf-8")
-        tmp.replace(path)
-
-
-for _rid in FK_TARGETS:
-    _write_stamp(_rid)
+                     f"{shown(', '.join(_FK_OLD))} (delete their files if they are not wanted)\n")
 
 
 def _stamp(wildcards):
-    return str(Path(FK_RESULTS) / ".fingerprints" / wildcards.id)
+    """A small file holding the row's fingerprint, rewritten only when the fingerprint changes.
+    As an input it makes Snakemake rerun the figure by modification time even where Snakemake
+    has no metadata for it (outputs made by `figkit render` by hand, a copied results folder).
+    Written here, when Snakemake asks for the figure's inputs and before it looks at any file,
+    and only in a run that executes jobs: a dry run (or --report, --summary) writes nothing; a
+    stale stamp then stands for its rewrite by the ``.changed`` file the rule below would make,
+    so the dry run still lists the figure."""
+    path = Path(FK_RESULTS) / ".fingerprints" / wildcards.id
+    value = _fingerprint(wildcards, files=False)
+    if path.is_file() and path.read_text(encoding="utf-8") == value:
+        return str(path)
+    if workflow.executor_plugin is None or workflow.dryrun:
+        return str(path.with_name(f"{path.name}.changed"))
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.part")
+    tmp.write_text(value, encoding="utf-8")
+    tmp.replace(path)
+    return str(path)
+
+
+rule figure_fingerprint_changed:
+    # Only ever scheduled by a dry run (see _stamp); a real run rewrites the stamp instead.
+    output:
+        f"{FK_RESULTS}/.fingerprints/{{id}}.changed",
+    shell:
+        "touch {output}"
 
 
 rule all_figures:
     input:
         [f"{FK_RESULTS}/figures/{rid}.json" for rid in FK_TARGETS],
+
+
+def _sidecar(wildcards):
+    return f"{FK_RESULTS}/figures/{wildcards.id}.json"
 
 
 def _figure_outputs():
@@ -131,7 +173,7 @@ def _figure_outputs():
         path = f"{FK_RESULTS}/figures/{{id}}.{fmt}"
         if fmt == "png":   # the HTML report (snakemake --report) shows every figure's PNG
             path = report(path, caption="report/caption.rst", category="Figures",
-                          labels=lambda w: {"figure": w.id})
+                          labels=lambda w: figkit.workflow.report.labels(_sidecar(w), w.id))
         out.append(path)
     return out
 
@@ -144,12 +186,26 @@ rule figure:
         _figure_outputs(),
     params:
         fingerprint=_fingerprint,
-        caption=lambda w: FK_BY_ID[w.id].cells.get("caption", ""),
-        chart=lambda w: FK_BY_ID[w.id].cells.get("chart", ""),
+        # Sheet text for the report's caption template: plain text there, never markup, and
+        # nothing in Snakemake's page that could end its script element (figkit.text).
+        caption=lambda w: ReportText(FK_BY_ID[w.id].cells.get("caption", "")),
+        chart=lambda w: ReportText(FK_BY_ID[w.id].cells.get("chart", "")),
+        # The sidecar's numbers for the report, read when the report is written.
+        numbers=lambda w: figkit.workflow.report.ReportNumbers(_sidecar(w)),
+    log:
+        "logs/figures/{id}.log",
+    threads: 1
+    resources:
+        mem_mb=_resource("mem_mb"),
+        runtime=_resource("runtime"),
     wildcard_constraints:
         id="[A-Za-z0-9][A-Za-z0-9_-]*",
     shell:
-        f"{figkit.workflow.job_python()} -m figkit render --id {{wildcards.id}}"
+        # The job's messages go to the terminal (its one-line error) and to its log; Snakemake's
+        # bash runs with pipefail, so the job still fails when figkit does.
+        # What Snakemake granted goes into the sidecar (placeholders: the text stays the same).
+        f"{figkit.workflow.job_python()} -m figkit render --id {{wildcards.id}} "
+        "--granted mem_mb={resources.mem_mb},runtime={resources.runtime} 2>&1 | tee {log}"
 
 
 onsuccess:

@@ -1,0 +1,12 @@
+#!/bin/sh
+# A stand-in batch system for tests: starts Snakemake's job script in the background in a clean
+# environment (env -i with only PATH and HOME, as on another node) and prints a job id.  State
+# lives in .queue/ of the project (the working directory).  Each call is one submission.
+set -e
+script="$1"
+mkdir -p .queue
+id="job$(date +%s%N)$$"
+echo "$id" >> .queue/submitted
+( env -i PATH="$PATH" HOME="$HOME" sh "$script" > ".queue/$id.out" 2>&1; echo $? > ".queue/$id.rc" ) \
+    < /dev/null > /dev/null 2>&1 &
+echo "$id"

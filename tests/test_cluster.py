@@ -1,0 +1,107 @@
+"""The profiles shipped with figkit: the demo built through Snakemake's generic cluster executor
+(snakemake-executor-plugin-cluster-generic) with a stand-in batch system that starts each job in
+a clean environment, the SLURM profile's dry run (snakemake-executor-plugin-slurm), and the
+profiles `figkit init` puts into a manuscript folder.
+
+Outside references: Snakemake's executor plugins and its dry-run listing; the per-panel numbers
+of a local build of the same demo data (the session's `built_demo`), read from its sidecars.
+"""
+from __future__ import annotations
+
+import filecmp
+import json
+import os
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from conftest import REPO, copy_project, make_demo_data, snakemake
+
+CLUSTER = REPO / "tests" / "cluster"
+PROFILES = ("local", "slurm", "cluster-generic")
+
+
+def _with_profiles(project: Path) -> Path:
+    shutil.copytree(REPO / "profiles", project / "profiles")
+    return project
+
+
+def _panels(folder: Path) -> dict:
+    return {p.stem: [{k: panel.get(k) for k in ("label", "keys", "n", "n_dropped", "stats", "trend")}
+                     for panel in json.loads(p.read_text())["panels"]]
+            for p in sorted(folder.glob("*.json"))}
+
+
+def test_demo_through_the_generic_cluster_executor(built_demo, tmp_path):
+    """`snakemake --profile profiles/cluster-generic` with tests/cluster/submit.sh (jobs started in
+    the background under `env -i` with only PATH and HOME) builds every figure; the 12 figures go
+    to the queue as at most 3 submissions (grouped, five per group), and every sidecar's per-panel
+    numbers equal those of the local build."""
+    pytest.importorskip("snakemake_executor_plugin_cluster_generic")
+    project = _with_profiles(copy_project(tmp_path / "cluster"))
+    make_demo_data(project)
+    proc = snakemake(project, "--profile", "profiles/cluster-generic",
+                     "--cluster-generic-submit-cmd", f"sh {CLUSTER / 'submit.sh'}",
+                     "--cluster-generic-status-cmd", f"sh {CLUSTER / 'status.sh'}",
+                     "--cluster-generic-cancel-cmd", "true", "--latency-wait", "10")
+    submitted = (project / ".queue" / "submitted").read_text().split()
+    local = _panels(built_demo / "results" / "figures")
+    remote = _panels(project / "results" / "figures")
+    assert len(remote) == 12 and set(remote) == set(local)
+    assert remote == local
+    assert 1 <= len(submitted) <= 3, (submitted, proc.stdout[-2000:])
+    for fid in remote:
+        assert (project / "logs" / "figures" / f"{fid}.log").is_file()
+
+
+def test_slurm_profile_dry_run(tmp_path):
+    """`snakemake --profile profiles/slurm -n` on a fresh copy: no cluster needed, every figure
+    listed with its own mem_mb and runtime, nothing written."""
+    pytest.importorskip("snakemake_executor_plugin_slurm")
+    project = _with_profiles(copy_project(tmp_path / "slurm"))
+    proc = snakemake(project, "--profile", "profiles/slurm", "-n", "-p")
+    text = proc.stdout + proc.stderr
+    assert "Using profile profiles/slurm" in text
+    assert text.count("rule figure:") == 12
+    assert text.count("--granted mem_mb=") == 12
+    assert not (project / "results").exists() and not (project / "logs").exists()
+
+
+def test_init_installs_the_profiles(tmp_path):
+    """`figkit init` puts the same three profiles into the new folder, and the local one runs
+    there (a dry run through `--profile profiles/local`)."""
+    target = tmp_path / "paper"
+    proc = subprocess.run([sys.executable, "-m", "figkit", "init", str(target), "--scale", "0.02"],
+                          capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    for name in PROFILES:
+        cmp = filecmp.dircmp(REPO / "profiles" / name, target / "profiles" / name)
+        assert cmp.left_only == [] and cmp.right_only == [] and cmp.diff_files == [], name
+    dry = snakemake(target, "--profile", "profiles/local", "-n")
+    assert "Using profile profiles/local" in dry.stdout + dry.stderr
+
+
+def test_a_job_command_stands_alone(tmp_path):
+    """The command Snakemake prints for a figure job holds no path of this machine and runs in a
+    fresh environment (`env -i`, only PATH with the environment's bin folder first, and HOME), as
+    on another node: FIGKIT_PYTHON unset, the shell falls back to python3 from PATH."""
+    import re
+    project = copy_project(tmp_path / "alone")
+    make_demo_data(project)
+    proc = snakemake(project, "-n", "-p", "results/figures/temperature-histogram.json")
+    (command,) = [l.split("Shell command: ", 1)[1] for l in proc.stdout.splitlines()
+                  if "figkit render" in l and l.startswith("Shell command: ")]
+    assert str(project) not in command and sys.executable not in command
+    assert not re.search(r"(^|\s)/", command)       # no absolute path at all
+    env = {"PATH": f"{Path(sys.executable).parent}{os.pathsep}/usr/bin{os.pathsep}/bin",
+           "HOME": os.environ.get("HOME", str(tmp_path))}
+    (project / "logs" / "figures").mkdir(parents=True)
+    run = subprocess.run(["env", "-i", *(f"{k}={v}" for k, v in env.items()), "bash", "-c",
+                          f"set -euo pipefail; {command}"], cwd=project, capture_output=True, text=True)
+    assert run.returncode == 0, run.stdout + run.stderr
+    car = json.loads((project / "results" / "figures" / "temperature-histogram.json").read_text())
+    assert car["settings"]["from"] == "config/config.yaml"     # no workflow around it
+    assert car["resources"]["granted"]["mem_mb"] > 0
