@@ -31,15 +31,26 @@ PROFILES = Path(__file__).with_name("profiles")   # Snakemake profiles: local, s
 
 
 def _cmd_render(args) -> int:
+    """Several ids share one interpreter and its imports; each figure's files are still written
+    together or not at all, and a figure that fails fails alone (exit 2 after the others)."""
     from .render import load_project, render
     from .workflow import settings_from_environment
     project = load_project(args.project, settings_from_environment())
-    rec = render(project, args.id, granted=args.granted)
     out = project.config.results / "figures"
-    n = len(rec["panels"])
-    print(f"figkit: {rec['id']}: {n} panel{'' if n == 1 else 's'}, "
-          f"{rec['size_mm'][0]:.0f} x {rec['size_mm'][1]:.0f} mm -> {out}/{rec['id']}.*")
-    return 0
+    failed = 0
+    for fid in dict.fromkeys(args.id):
+        try:
+            rec = render(project, fid, granted=args.granted)
+        except FigkitError as exc:
+            if len(args.id) == 1:
+                raise
+            failed += 1
+            print(f"figkit: error: {exc}", file=sys.stderr)
+            continue
+        n = len(rec["panels"])
+        print(f"figkit: {rec['id']}: {n} panel{'' if n == 1 else 's'}, "
+              f"{rec['size_mm'][0]:.0f} x {rec['size_mm'][1]:.0f} mm -> {out}/{rec['id']}.*")
+    return 2 if failed else 0
 
 
 def _granted(text: str) -> dict:
@@ -385,7 +396,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--version", action="version", version=f"figkit {__version__}")
     sub = p.add_subparsers(dest="command", required=True)
     r = sub.add_parser("render", help="build one figure of the sheet", formatter_class=_Fmt)
-    r.add_argument("--id", required=True, help="the figure's id (sheet column 'id')")
+    r.add_argument("--id", required=True, action="append",
+                   help="the figure's id (sheet column 'id'); repeat it to build several figures "
+                        "in one process")
     r.add_argument("--project", default=".", help="manuscript folder (default: here)")
     r.add_argument("--granted", metavar="mem_mb=N,runtime=M", type=_granted,
                    help="resources the workflow gave this job, recorded in the sidecar")
