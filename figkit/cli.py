@@ -202,9 +202,16 @@ def _cmd_compare(args) -> int:
     gate that exits 1); 2 for bad input."""
     from .compare import compare_builds
     from .snapshot import resolve_build
+    import time
+    t0 = time.perf_counter()
     project = _project_or_none(args.project)
+    if args.review:
+        from .review import check_folder
+        check_folder(args.review)                  # refused before the work, not after it
     old = resolve_build(args.old, project)
     new = resolve_build(args.new, project)
+    if Path(old.figures).resolve() == Path(new.figures).resolve():
+        print("figkit: caution: both sides are the same folder", file=sys.stderr)
     th = _thresholds(project, args)
     report = compare_builds(old, new, thresholds=th, out_dir=args.out, tolerance=args.tolerance,
                             keep_images=bool(args.review))
@@ -213,7 +220,8 @@ def _cmd_compare(args) -> int:
         from .review import write_review
         page = write_review(report, old, new, Path(args.review))
         print(f"figkit: review page -> {page}")
-    print(f"figkit: compare: took {report.seconds:.1f} s", file=sys.stderr)
+    print(f"figkit: compare: took {time.perf_counter() - t0:.1f} s (comparing "
+          f"{report.seconds:.1f} s)", file=sys.stderr)
     return 0
 
 
@@ -221,8 +229,9 @@ def _cmd_snapshot(args) -> int:
     from .sheet import load_project
     from .snapshot import take_snapshot
     project = load_project(args.project)
+    dpi = _thresholds(project).compare_dpi        # a bad review: setting fails before any work
     m = take_snapshot(project, args.name, replace=args.replace, note=args.note)
-    _prime_reduced(project, m["name"])
+    _prime_reduced(project, m["name"], dpi)
     st = m["stored"]
     print(f"figkit: snapshot '{m['name']}': {len(m['figures'])} figures, {st['files']} files "
           f"({st['new_bytes'] / 2**20:.1f} MiB newly stored, {st['shared_files']} already in "
@@ -239,18 +248,22 @@ def _cmd_snapshot(args) -> int:
     return 0
 
 
-def _prime_reduced(project, name: str) -> None:
+def _prime_reduced(project, name: str, dpi: float) -> None:
     """Reduce a new snapshot's renders to the comparison resolution now (in threads), so that
     every later comparison against it decodes only the other side's renders."""
     from concurrent.futures import ThreadPoolExecutor
     from .compare import load_for_compare
     from .snapshot import snapshot_build, snapshots_dir
+    from .compare import read_sidecars
     build = snapshot_build(snapshots_dir(project) / name)
-    dpi = _thresholds(project).compare_dpi
-    pngs = sorted(Path(build.figures).glob("*.png"))
+    jobs = []
+    for _, sidecar in read_sidecars(Path(build.figures)).values():
+        png = Path(build.figures) / f"{sidecar['id']}.png"
+        if png.is_file():        # the sidecar's dpi, as compare reads it
+            jobs.append((png, sidecar.get("dpi")))
     with ThreadPoolExecutor(max_workers=min(4, os.cpu_count() or 1)) as pool:
-        list(pool.map(lambda p: load_for_compare(p, None, dpi, cache=build.reduced_cache(p, dpi)),
-                      pngs))
+        list(pool.map(lambda j: load_for_compare(j[0], j[1], dpi,
+                                                 cache=build.reduced_cache(j[0], dpi)), jobs))
 
 
 def _cmd_draft(args) -> int:
@@ -288,6 +301,9 @@ def _cmd_check(args) -> int:
     from .sheet import load_project
     from .snapshot import MANIFEST, current_build, list_snapshots, snapshot_build, snapshots_dir
     project = load_project(args.project)
+    if args.junit and Path(args.junit).is_dir():
+        raise FigkitError("--junit names a folder; give a file name", field="junit",
+                          value=args.junit, allowed="a file path, e.g. results/figure-check.xml")
     folder = snapshots_dir(project) / args.name
     if not (folder / MANIFEST).is_file():
         folder = Path(args.name)                   # a snapshot folder given by its path

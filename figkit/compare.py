@@ -21,6 +21,7 @@ from __future__ import annotations
 import json
 import math
 import os
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -51,6 +52,7 @@ INK_ADDED = (0xD5, 0x5E, 0x00)     # the new render is darker here: something wa
 INK_REMOVED = (0x00, 0x72, 0xB2)   # the new render is lighter here: something went away
 INK_RECOLOURED = (0xCC, 0x79, 0xA7)  # same lightness, different colour
 
+_SAFE_ID = re.compile(r"[A-Za-z0-9][A-Za-z0-9_-]{0,63}")   # the sheet's id rule
 RECOLOUR_STEP = 24      # 0-255: a colour change the overlay marks although lightness stayed
 REPORT_NAME = "changes.md"
 P_THRESHOLD = 0.05       # conventional significance level (common practice), only for a note
@@ -498,6 +500,8 @@ def _show(v) -> str:
     if isinstance(v, bool):
         return "yes" if v else "no"
     if isinstance(v, float):
+        if v.is_integer() and abs(v) < 1e15:
+            return str(int(v))          # a count summed as float: 15050, not 1.505e+04
         return f"{v:.4g}"
     if isinstance(v, (list, tuple)):
         return "[" + ", ".join(_show(i) for i in v) + "]"
@@ -709,15 +713,14 @@ def compare_sidecars(old: dict, new: dict, *, rel_tol: float = 1e-9) -> list[Cha
     if not gone and not came and oc != nc:
         add("colour order", oc, nc, "same colours, assigned in another order")
 
-    oca, nca = _caution_index(old), _caution_index(new)
-    for kind, text in oca.items():
-        if kind not in nca:
+    moved, reworded = caution_changes(old, new)
+    for how, text in moved:
+        if how == "gone":
             add("caution removed", text, None)
-        elif nca[kind] != text:
-            add("caution", text, nca[kind], "same caution, other numbers")
-    for kind, text in nca.items():
-        if kind not in oca:
+        else:
             add("caution added", None, text)
+    for a, b in reworded:
+        add("caution", a, b, "same caution, other numbers")
 
     ov, nv = old.get("versions") or {}, new.get("versions") or {}
     for key in list(ov) + [k for k in nv if k not in ov]:
@@ -739,11 +742,32 @@ def caution_kind(text: str) -> str:
     return _NUMBER.sub("#", str(text))
 
 
-def _caution_index(sidecar: dict) -> dict[str, str]:
-    out: dict[str, str] = {}
+def _caution_index(sidecar: dict) -> dict[str, list[str]]:
+    out: dict[str, list[str]] = {}
     for c in sidecar.get("cautions") or []:
-        out.setdefault(caution_kind(c), str(c))
+        out.setdefault(caution_kind(c), []).append(str(c))
     return out
+
+
+def caution_changes(old: dict, new: dict) -> tuple[list[tuple], list[tuple]]:
+    """(appeared or gone, reworded) cautions of two sidecars.  Cautions are matched by kind
+    (:func:`caution_kind`); a kind that occurs more or fewer times than before (one panel more
+    named in its own caution) counts as cautions appearing or going, the texts that are new or
+    gone named.  Appeared/gone: ("gone" | "new", text); reworded: (old text, new text)."""
+    oca, nca = _caution_index(old), _caution_index(new)
+    moved, reworded = [], []
+    for kind in list(oca) + [k for k in nca if k not in oca]:
+        o, n = oca.get(kind, []), nca.get(kind, [])
+        if len(o) == len(n):
+            reworded += [(a, b) for a, b in zip(o, n) if a != b]
+            continue
+        extra_old = [t for t in o if t not in n] or o[len(n):]
+        extra_new = [t for t in n if t not in o] or n[len(o):]
+        if len(o) > len(n):
+            moved += [("gone", t) for t in extra_old[:len(o) - len(n)]]
+        else:
+            moved += [("new", t) for t in extra_new[:len(n) - len(o)]]
+    return moved, reworded
 
 
 _GROUP_NUMBERS = ("n", "mean", "median", "q1", "q3", "whisker_low", "whisker_high", "outliers",
@@ -925,8 +949,8 @@ def conclusions(old: dict, new: dict, th: Thresholds = Thresholds()) -> list[Cha
       shares and tiles by their category and colour group);
     * the order of groups by their value changing: box and violin groups by median (or mean),
       bars by height within each colour group, categories by the share of each stacked group
-      but the last (whose share is the complement); a pair counts only when its order reverses,
-      never a tie;
+      (of the first only when there are two: the second's is the complement); a pair counts only
+      when its order reverses, never a tie;
     * a share moving by >= ``share_points`` percentage points;
     * a caution appearing or going (numbers masked: the same caution about other numbers is
       numeric detail, see :func:`caution_kind`).
@@ -963,13 +987,11 @@ def conclusions(old: dict, new: dict, th: Thresholds = Thresholds()) -> list[Cha
                                       "panels" if p1 < th.p_level else
                                       f"now at or above {th.p_level:g}: no longer evidence that "
                                       "the slopes differ between panels"))
-    oca, nca = _caution_index(old), _caution_index(new)
-    for kind, text in oca.items():
-        if kind not in nca:
-            add("caution gone", text, None)
-    for kind, text in nca.items():
-        if kind not in oca:
-            add("caution new", None, text)
+    for how, text in caution_changes(old, new)[0]:
+        if how == "gone":
+            add("caution removed", text, None)
+        else:
+            add("caution added", None, text)
     return out
 
 
@@ -1001,8 +1023,8 @@ def _group_conclusions(fig: str, at: str, po: dict, pn: dict, th: Thresholds) ->
             continue
         groups = [g for g in dict.fromkeys(str(r.get("group")) for r in orec + nrec
                                            if isinstance(r, dict))]
-        if what == "shares":
-            groups = groups[:-1] or groups      # the last stacked share is the complement
+        if what == "shares" and len(groups) == 2:
+            groups = groups[:1]     # two stacked parts: the second's share is the complement
         for g in groups:
             ov = {str(r.get("x")): r.get(value) for r in orec
                   if isinstance(r, dict) and str(r.get("group")) == g}
@@ -1016,7 +1038,7 @@ def _group_conclusions(fig: str, at: str, po: dict, pn: dict, th: Thresholds) ->
                 for x in [x for x in ov if x in nv]:
                     a, b = ov[x], nv[x]
                     if _is_number(a) and _is_number(b) and abs(b - a) * 100 >= th.share_points - 1e-9:
-                        out.append(Change(fig, f"{at} share of '{g}' at '{x}'", a, b,
+                        out.append(Change(fig, f"{at} share {x} / {g}", a, b,
                                           f"{(b - a) * 100:+.1f} percentage points", "conclusion"))
     return out
 
@@ -1031,7 +1053,7 @@ class FigureComparison:
     conclusions: list[Change] = field(default_factory=list)
     rms: float | None = None          # 0-255 scale, at the comparison resolution; None: not compared
     ssim: float | None = None
-    pixels: str = "identical"          # identical | within tolerance | differ | missing
+    pixels: str = "identical"          # identical | within tolerance | differ | missing | not compared
     note: str = ""
     diff_png: Path | None = None
     size_change: str = ""              # "height +1.6 mm" when the renders' sizes differ
@@ -1058,7 +1080,7 @@ class FigureComparison:
 
     def pixel_text(self) -> str:
         size = f"; size changed: {self.size_change}" if self.size_change else ""
-        if self.pixels in ("identical", "missing"):
+        if self.pixels in ("identical", "missing", "not compared"):
             return f"pixels {self.pixels}" + (f": {self.note}" if self.note else "") + size
         return f"pixels {self.pixels}: RMS {self.rms:.3g} (0-255), SSIM {self.ssim:.4f}{size}"
 
@@ -1226,14 +1248,14 @@ def compare_pixels(fc: FigureComparison, old_png, new_png, *, old_dpi=None, new_
     a common canvas when their sizes differ (the size change is reported, the pixels still
     compared), and their RMS difference and SSIM taken there."""
     if old_png is None and new_png is None:
-        fc.pixels, fc.note = "identical", "no PNG in either build, not compared"
+        fc.pixels, fc.note = "not compared", "no PNG in either build (formats without png)"
         return
     if old_png is None or new_png is None:
         fc.pixels = "missing"
         fc.note = f"PNG only in the {'new' if old_png is None else 'old'} build"
         return
     da, db = png_pixel_digest(old_png), png_pixel_digest(new_png)
-    if da is not None and da == db and not keep_images:
+    if da is not None and da == db:       # equal image data: nothing to decode or to show
         fc.pixels, fc.rms, fc.ssim = "identical", 0.0, 1.0
         return
     a = load_for_compare(old_png, old_dpi, th.compare_dpi, cache=old_cache)
@@ -1300,6 +1322,11 @@ def compare_builds(old: Build, new: Build, *, thresholds: Thresholds = Threshold
     if not old_sc and not new_sc:
         raise FigkitError(f"no figure sidecars (*.json) in {old.figures} or {new.figures}; "
                           "give two folders of built figures (results/figures) or snapshots")
+    for b, sc, side in ((old, old_sc, "old"), (new, new_sc, "new")):
+        if not sc:            # a mistyped folder would otherwise read as "every figure removed"
+            raise FigkitError(f"no figure sidecars (*.json) in the {side} build; give a folder "
+                              "of built figures (results/figures), a snapshot name or folder",
+                              field=side, value=str(b.figures))
     out = Path(out_dir) if out_dir is not None else None
     if out is not None:
         if out.exists() and not out.is_dir():
@@ -1326,7 +1353,9 @@ def compare_builds(old: Build, new: Build, *, thresholds: Thresholds = Threshold
         from .provenance import atomic_outputs
         for fc in report.figures:
             if fc.pixels == "differ" and fc.images is not None:
-                fc.diff_png = diff_image(*on_common_canvas(*fc.images), out / f"{fc.id}.diff.png")
+                name = (f"{fc.id}.diff.png" if _SAFE_ID.fullmatch(fc.id)    # a sheet id
+                        else f"figure-{report.figures.index(fc) + 1:03d}.diff.png")
+                fc.diff_png = diff_image(*on_common_canvas(*fc.images), out / name)
             if not keep_images:
                 fc.images = None
         report.markdown_path = out / REPORT_NAME

@@ -8,7 +8,8 @@ judges each figure:
   whose size changed fails;
 * numbers: every panel's n and n_dropped exactly, every statistic the sidecar records within the
   relative tolerance ``stats_rel_tol``, the same panels, groups and cautions;
-* a figure missing from the current build, or new in it, fails (approve it with a new snapshot).
+* a figure missing from the current build, or new in it, fails (approve it with a new snapshot);
+* a figure of the current build older than its data files fails (the build is not current).
 
 Changed inputs and versions alone never fail a figure: the figure is what is approved.  Exit
 status 0 when every figure passes, 1 when any fails, 2 on bad input (the CLI's rule).  A JUnit
@@ -33,9 +34,11 @@ class Verdict:
     seconds: float = 0.0
 
 
-def judge(fc: FigureComparison, th: Thresholds) -> Verdict:
+def judge(fc: FigureComparison, th: Thresholds, stale=()) -> Verdict:
     """One figure's verdict from its comparison (the rules in the module docstring)."""
     reasons = []
+    if fc.id in stale:
+        reasons.append("older than its data files: rebuild before checking")
     if fc.pixels == "missing":
         reasons.append(fc.note)
     elif fc.size_change:
@@ -73,9 +76,10 @@ class GateResult:
                 out.append(f"figkit: check: CHANGED {v.id}: {v.reasons[0]}"
                            + (f" (+{len(v.reasons) - 1} more)" if len(v.reasons) > 1 else ""))
         th = self.report.thresholds
-        if self.report.stale:
-            out.append("figkit: caution: these figures are older than their data files, so the "
-                       "check judged stale files (rebuild first): " + ", ".join(self.report.stale))
+        unseen = [f.id for f in self.report.figures if f.pixels == "not compared"]
+        if unseen:
+            out.append("figkit: caution: no PNG to compare, numbers checked only: "
+                       + ", ".join(unseen))
         out.append(f"figkit: check: {len(self.verdicts)} figures against snapshot "
                    f"'{self.snapshot}': {len(self.verdicts) - len(self.failed)} match, "
                    f"{len(self.failed)} differ (SSIM >= {th.ssim_min:g}, RMS <= {th.rms_max:g} "
@@ -89,7 +93,7 @@ def check_against(old, new, th: Thresholds, snapshot: str) -> GateResult:
     judge every figure of either."""
     report = compare_builds(old, new, thresholds=th, rel_tol=th.stats_rel_tol)
     per = report.seconds / max(1, len(report.figures))
-    verdicts = [judge(fc, th) for fc in sorted(report.figures, key=lambda f: f.id)]
+    verdicts = [judge(fc, th, report.stale) for fc in sorted(report.figures, key=lambda f: f.id)]
     for v in verdicts:
         v.seconds = per
     verdicts += [Verdict(fid, False, [f"missing from the current build (in snapshot "
@@ -131,9 +135,10 @@ def junit_xml(result: GateResult) -> bytes:
 
 
 def _xml_text(text: str) -> str:
-    """XML 1.0 allows no control characters but tab, newline and carriage return (XML 1.0,
-    section 2.2 "Characters"): any other is shown as U+FFFD."""
-    return "".join(c if c in "\t\n\r" or ord(c) >= 0x20 else "\ufffd" for c in str(text))
+    """XML 1.0 allows tab, newline, carriage return and U+0020-U+D7FF, U+E000-U+FFFD,
+    U+10000-U+10FFFF (XML 1.0, section 2.2 "Characters"): any other is shown as U+FFFD."""
+    return "".join(c if c in "\t\n\r" or (0x20 <= ord(c) < 0xD800 or 0xE000 <= ord(c) < 0xFFFE
+                                           or ord(c) > 0xFFFF) else "\ufffd" for c in str(text))
 
 
 def write_junit(result: GateResult, path: Path) -> Path:

@@ -17,6 +17,7 @@ from __future__ import annotations
 import html
 import json
 import os
+import re
 from pathlib import Path
 
 import numpy as np
@@ -39,7 +40,7 @@ h2 { font-size: 19px; margin: 0; display: flex; gap: 10px; align-items: baseline
 .counts { display: flex; gap: 10px; flex-wrap: wrap; padding: 0; margin: 0 0 14px; list-style: none; }
 .counts li { border: 1px solid var(--rule); border-radius: 6px; padding: 8px 14px; min-width: 120px; }
 .counts li b { display: block; font-size: 26px; line-height: 1.1; }
-.counts li.conclusion { border-color: var(--warn); color: var(--warn); }
+.counts li.conclusion.some { border-color: var(--warn); color: var(--warn); }
 table { border-collapse: collapse; margin: 6px 0 12px; font-size: 13px; }
 th, td { border-bottom: 1px solid var(--rule); padding: 4px 10px 4px 0; text-align: left;
          vertical-align: top; }
@@ -72,6 +73,8 @@ figcaption, .key { color: var(--muted); font-size: 13px; margin: 4px 0; }
 .stack img.new { position: absolute; left: 0; top: 0; animation: blink 2.4s steps(1) infinite; }
 .stack:hover img.new { animation: none; visibility: hidden; }
 @keyframes blink { 0% { visibility: visible; } 50% { visibility: hidden; } }
+@media (prefers-reduced-motion: reduce) { .stack img.new { animation: none; }
+  .stack:hover img.new { visibility: hidden; } }
 .swatch { display: inline-block; width: 12px; height: 12px; vertical-align: -1px; margin: 0 4px 0 10px;
           border: 1px solid rgba(0,0,0,.2); }
 details { margin: 4px 0 10px; font-size: 13px; }
@@ -148,7 +151,8 @@ def _figure_section(fc: FigureComparison, img_dir: Path, n: int) -> str:
             f'<img class="old" src="{names["old"]}" alt="{alt}, old">'
             f'<img class="new" src="{names["new"]}" alt="{alt}, new"></div>'
             '<p class="key">Old and new take turns in place (every 1.2 s); hold the pointer on '
-            'the figure to keep the old one.</p></div>'
+            'the figure to keep the old one (with reduced motion set: the new one, the old one '
+            'under the pointer).</p></div>'
             '<div class="view overlay">'
             f'<img src="{names["overlay"]}" alt="{alt}, old and new overlaid">'
             f'<p class="key"><span class="swatch" style="background:{_hex(INK_REMOVED)}"></span>'
@@ -188,17 +192,38 @@ def _single(fid: str, build, label: str, img_dir: Path, n: int, dpi: float) -> s
             f'<h2>{_e(fid)} <span class="badge">{label}</span></h2>{body}</section>')
 
 
+_OWN_IMAGE = re.compile(r"\d{3,}\.(old|new|overlay|diff|only)\.png")
+
+
+def check_folder(folder: Path | str) -> Path:
+    """The review folder, refused before any work when it is a file or holds files that are not
+    a review page's (a page is only ever rewritten over an earlier page, never over a user's
+    files)."""
+    folder = Path(folder)
+    if folder.exists() and not folder.is_dir():
+        raise FigkitError("--review must be a folder", field="review", value=str(folder))
+    if folder.is_dir():
+        foreign = [p.name for p in folder.iterdir() if p.name not in (PAGE, RESULT, "img")]
+        img = folder / "img"
+        if img.is_dir():
+            foreign += [f"img/{p.name}" for p in img.iterdir() if not _OWN_IMAGE.fullmatch(p.name)]
+        if foreign or ((folder / PAGE).exists() and not (folder / RESULT).exists()):
+            raise FigkitError("the review folder holds files that are not an earlier review page; "
+                              "give a new or empty folder", field="review", value=str(folder),
+                              allowed="a new folder, or one figkit wrote a review page into")
+    return folder
+
+
 def write_review(report: Report, old, new, folder: Path | str) -> Path:
     """Write the review page of ``report`` (made with ``keep_images=True``) into ``folder``;
     ``old`` and ``new`` are the compared :class:`figkit.snapshot.Build`.  Returns the page."""
     from .provenance import atomic_outputs
-    folder = Path(folder)
-    if folder.exists() and not folder.is_dir():
-        raise FigkitError("--review must be a folder", field="review", value=str(folder))
+    folder = check_folder(folder)
     img_dir = folder / "img"
     img_dir.mkdir(parents=True, exist_ok=True)
-    for stale in img_dir.glob("*.png"):        # a page written before into the same folder
-        stale.unlink()
+    for stale in img_dir.iterdir():            # the images of a page written here before
+        if _OWN_IMAGE.fullmatch(stale.name):
+            stale.unlink()
     counts = report.counts()
     th = report.thresholds
     changed = report.changed
@@ -211,7 +236,8 @@ def write_review(report: Report, old, new, folder: Path | str) -> Path:
         f'<p class="builds">old: <b>{_e(report.old_label)}</b> &middot; new: '
         f'<b>{_e(report.new_label)}</b></p>',
         '<ul class="counts">',
-        f'<li class="conclusion" data-count="conclusions_changed"><b>'
+        f'<li class="conclusion{" some" if counts["conclusions_changed"] else ""}" '
+        f'data-count="conclusions_changed"><b>'
         f'{counts["conclusions_changed"]}</b>changed a conclusion</li>',
         f'<li data-count="changed"><b>{counts["changed"]}</b>changed</li>',
         f'<li data-count="unchanged"><b>{counts["unchanged"]}</b>unchanged</li>',
@@ -259,7 +285,9 @@ def write_review(report: Report, old, new, folder: Path | str) -> Path:
     if report.unchanged:
         body.append('<section class="figure" id="unchanged"><h2>Unchanged '
                     '<span class="badge same">pixels and numbers equal</span></h2><ul>' + "".join(
-                        f"<li>{_e(f.id)}" + (" (its inputs changed: "
+                        f"<li>{_e(f.id)}" + (" (numbers equal; pixels not compared: no PNG)"
+                                             if f.pixels == "not compared" else "")
+                        + (" (its inputs changed: "
                                              + _e(", ".join(c.what for c in f.provenance)) + ")"
                                              if f.provenance else "") + "</li>"
                         for f in report.unchanged) + "</ul></section>")

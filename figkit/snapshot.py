@@ -20,6 +20,7 @@ import json
 import os
 import re
 import shutil
+from glob import escape as glob_escape
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
@@ -91,17 +92,33 @@ def check_name(name: str) -> str:
 
 
 def _figure_files(folder: Path, fid: str) -> list[Path]:
-    """The files of one built figure: its sidecar, what the sidecar lists, its stats file."""
+    """The files of one built figure: ``<id>.<anything>`` (figure files, sidecar, stats and
+    values files; an id holds no '.', so the prefix is the figure's own), none while a build's
+    temporary ``.part`` files are about; [] when the figure has no readable sidecar."""
     sidecar = folder / f"{fid}.json"
     if not sidecar.is_file():
         return []
     try:
-        record = json.loads(sidecar.read_text(encoding="utf-8"))
+        json.loads(sidecar.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise FigkitError(f"cannot read sidecar {sidecar}: {exc}", figure=fid) from None
-    names = {sidecar.name, f"{fid}.stats.csv"}
-    names |= {Path(str(n)).name for n in (record.get("files") or {}).values()}
-    return [folder / n for n in sorted(names) if (folder / n).is_file()]
+    return sorted(p for p in folder.glob(f"{glob_escape(fid)}.*")
+                  if p.is_file() and not p.name.endswith(".part"))
+
+
+def _clear_abandoned(root: Path) -> None:
+    """Temporary folders of snapshot commands that were killed (their process is gone)."""
+    for p in root.iterdir():
+        m = re.fullmatch(r"\..+\.(\d+)\.(part|old)", p.name)
+        if not m or not p.is_dir():
+            continue
+        try:
+            os.kill(int(m.group(1)), 0)
+            continue                                   # still running: not ours to touch
+        except ProcessLookupError:
+            shutil.rmtree(p, ignore_errors=True)
+        except (PermissionError, OverflowError, ValueError):
+            continue
 
 
 def _store(src: Path, store: Path, digest: str) -> tuple[Path, bool]:
@@ -139,6 +156,7 @@ def take_snapshot(project, name: str, *, replace: bool = False, note: str | None
     current = {d["path"]: d["sha256"] for d in hashes["datasets"].values()}
     stale = []
     root.mkdir(parents=True, exist_ok=True)
+    _clear_abandoned(root)
     store = root / STORE
     work = root / f".{name}.{os.getpid()}.part"
     shutil.rmtree(work, ignore_errors=True)
@@ -173,6 +191,9 @@ def take_snapshot(project, name: str, *, replace: bool = False, note: str | None
             "not_built": missing, "older_than_data": stale, "files": files,
         }
         (work / MANIFEST).write_text(dumps(manifest), encoding="utf-8")
+        if target.exists() and not replace:    # another snapshot of this name came meanwhile
+            raise FigkitError(f"snapshot '{name}' was taken meanwhile by another command; "
+                              "choose another name, or pass --replace", field="NAME", value=name)
         if target.exists():
             trash = root / f".{name}.{os.getpid()}.old"
             os.replace(target, trash)
@@ -234,11 +255,15 @@ class Build:
         of a snapshot never change, so the copy stays valid); None for other builds."""
         if png is None or not self.manifest:
             return None
+        store = Path(self.figures).parent.parent / STORE
+        if not store.is_dir():                  # a snapshot folder copied elsewhere: no cache
+            return None
         rec = (self.manifest.get("files") or {}).get(f"figures/{Path(png).name}") or {}
         digest = rec.get("sha256")
         if not isinstance(digest, str) or not re.fullmatch(r"[0-9a-f]{64}", digest):
             return None
-        return Path(self.figures).parent.parent / STORE / "reduced" / f"{digest}.{dpi:g}dpi.png"
+        # "box1": the reduction method (a box filter); a new method gets new cache names
+        return store / "reduced" / f"{digest}.{dpi:g}dpi.box1.png"
 
 
 def current_build(project) -> Build:
