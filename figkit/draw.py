@@ -430,12 +430,13 @@ def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
 
 def _escape_left_controls(fig) -> None:
     """Labels are escaped where they are made (figkit.text.shown); this catches any text that was
-    not, since one control character makes the SVG ill-formed XML."""
+    not, since one control character makes the SVG ill-formed XML.  Line breaks stay: the layout
+    wraps titles with them (and XML allows them)."""
     from matplotlib.text import Text
-    from .text import CONTROLS
+    from .text import SHEET_CONTROLS, terminal
     for t in fig.findobj(Text):
-        if CONTROLS.search(t.get_text()):
-            t.set_text(shown(t.get_text()))
+        if SHEET_CONTROLS.search(t.get_text()):
+            t.set_text(terminal(t.get_text()))
 
 
 class _Assembly:
