@@ -32,7 +32,8 @@ def shown(value) -> str:
 
 
 def terminal(text: str) -> str:
-    """Text for a terminal: control characters escaped, line breaks and tabs kept."""
+    """Text for a terminal (or a label the layout wrapped): control characters escaped, line
+    breaks and tabs kept."""
     return SHEET_CONTROLS.sub(_escape, text)
 
 

@@ -133,21 +133,42 @@ def _stamp(wildcards):
     """A small file holding the row's fingerprint, rewritten only when the fingerprint changes.
     As an input it makes Snakemake rerun the figure by modification time even where Snakemake
     has no metadata for it (outputs made by `figkit render` by hand, a copied results folder).
-    Written here, when Snakemake asks for the figure's inputs and before it looks at any file,
-    and only in a run that executes jobs: a dry run (or --report, --summary) writes nothing; a
-    stale stamp then stands for its rewrite by the ``.changed`` file the rule below would make,
-    so the dry run still lists the figure."""
+    Written when Snakemake first asks for a figure's inputs, before it looks at any file, and only
+    in a run that executes jobs: a dry run (or --report, --summary) writes nothing; a stale stamp
+    then stands for its rewrite by the ``.changed`` file the rule below would make, so the dry run
+    still lists the figure."""
     path = Path(FK_RESULTS) / ".fingerprints" / wildcards.id
-    value = _fingerprint(wildcards, files=False)
-    if path.is_file() and path.read_text(encoding="utf-8") == value:
-        return str(path)
     if workflow.executor_plugin is None or workflow.dryrun:
+        if _stamp_is_current(wildcards.id):
+            return str(path)
         return str(path.with_name(f"{path.name}.changed"))
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.part")
-    tmp.write_text(value, encoding="utf-8")
-    tmp.replace(path)
+    _write_stamps()
     return str(path)
+
+
+def _stamp_is_current(rid) -> bool:
+    path = Path(FK_RESULTS) / ".fingerprints" / rid
+    value = _fingerprint(type("W", (), {"id": rid})(), files=False)
+    return path.is_file() and path.read_text(encoding="utf-8") == value
+
+
+_FK_STAMPS_WRITTEN = []
+
+
+def _write_stamps() -> None:
+    """Every figure's stamp at once, at the first call: Snakemake keeps a listing of a folder once
+    it has looked into it, so a stamp written after that would count as missing."""
+    if _FK_STAMPS_WRITTEN:
+        return
+    _FK_STAMPS_WRITTEN.append(True)
+    for rid in FK_TARGETS:
+        if _stamp_is_current(rid):
+            continue
+        path = Path(FK_RESULTS) / ".fingerprints" / rid
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = path.with_name(f".{path.name}.part")
+        tmp.write_text(_fingerprint(type("W", (), {"id": rid})(), files=False), encoding="utf-8")
+        tmp.replace(path)
 
 
 rule figure_fingerprint_changed:
