@@ -105,3 +105,24 @@ def test_a_job_command_stands_alone(tmp_path):
     car = json.loads((project / "results" / "figures" / "temperature-histogram.json").read_text())
     assert car["settings"]["from"] == "config/config.yaml"     # no workflow around it
     assert car["resources"]["granted"]["mem_mb"] > 0
+
+
+def test_a_killed_job_is_retried_with_more_memory_and_time(tmp_path):
+    """A figure job the batch system kills on its first attempt (the stand-in fails it with code
+    137) is submitted again by `--retries 1`, and Snakemake grants it twice the estimated mem_mb
+    and runtime: the sidecar holds both the estimate and the grant."""
+    pytest.importorskip("snakemake_executor_plugin_cluster_generic")
+    project = _with_profiles(copy_project(tmp_path / "retry"))
+    make_demo_data(project)
+    (project / ".queue").mkdir()
+    (project / ".queue" / "kill-next").write_text("")
+    target = "results/figures/temperature-histogram.json"
+    snakemake(project, target, "--profile", "profiles/cluster-generic", "--retries", "1",
+              "--cluster-generic-submit-cmd", f"sh {CLUSTER / 'submit.sh'}",
+              "--cluster-generic-status-cmd", f"sh {CLUSTER / 'status.sh'}",
+              "--cluster-generic-cancel-cmd", "true", "--latency-wait", "10")
+    submitted = (project / ".queue" / "submitted").read_text().split()
+    assert len(submitted) == 2
+    assert (project / ".queue" / f"{submitted[0]}.rc").read_text().strip() == "137"
+    res = json.loads((project / target).read_text())["resources"]
+    assert res["granted"] == {"mem_mb": 2 * res["mem_mb"], "runtime": 2 * res["runtime_min"]}

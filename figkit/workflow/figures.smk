@@ -96,8 +96,9 @@ def _available(path) -> bool:
 
 def _fingerprint(wildcards, files: bool = True):
     """The row's fingerprint, with its error if it has one and (``files``) the input files that
-    neither exist nor are made by a rule.  The stamp leaves the files out: it is written while
-    the workflow is read, when rules included later (the demo's data) are not known yet."""
+    neither exist nor are made by a rule.  The stamp leaves the files out, as it always has (it
+    was once written before rules included later, such as the demo's data, were known), so that
+    stamps written by earlier versions stay current."""
     row = FK_BY_ID[wildcards.id]
     spec = _spec(wildcards.id)
     if isinstance(spec, FigkitError):
