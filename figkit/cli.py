@@ -473,7 +473,8 @@ def build_parser() -> argparse.ArgumentParser:
     sn.add_argument("--note", help="a line kept in the manifest (e.g. 'as submitted')")
     sn.add_argument("--project", default=".", help="manuscript folder (default: here)")
     sn.set_defaults(func=_cmd_snapshot)
-    sl = sub.add_parser("snapshots", help="list the snapshots and what differs from now")
+    sl = sub.add_parser("snapshots", help="list the snapshots and what differs from now",
+                        epilog="example: figkit snapshots --project ~/papers/my-paper")
     sl.add_argument("--project", default=".", help="manuscript folder (default: here)")
     sl.set_defaults(func=_cmd_snapshots)
     cmp = sub.add_parser("compare", help="say what changed between two builds (snapshots or folders)",
@@ -492,7 +493,7 @@ def build_parser() -> argparse.ArgumentParser:
     cmp.add_argument("--project", default=".", help="manuscript folder (default: here)")
     cmp.set_defaults(func=_cmd_compare)
     ck = sub.add_parser("check", help="regression gate: exit 1 when the build differs from a snapshot",
-                        description="Check the current build against snapshot NAME: exit 0 when "
+                        description="Check the current build against snapshot NAME. Exit status 0 when "
                         "every figure matches within tolerance, 1 when any differs, 2 for bad "
                         "input. Tolerances come from the house style's review: settings.",
                         epilog="example: snakemake --cores 2 && figkit check approved --junit "

@@ -88,7 +88,8 @@ def test_results_override_builds_there(demo, tmp_path, how):
         args = ["--configfile", "other.yaml"]
     snakemake(project, f"alt/figures/{TARGET}.json", *args)
     built = sorted(p.name for p in (project / "alt" / "figures").iterdir())
-    assert built == sorted(f"{TARGET}.{ext}" for ext in ("json", "stats.csv", "pdf", "png", "svg"))
+    assert built == sorted(f"{TARGET}.{ext}" for ext in ("json", "stats.csv", "values.csv", "pdf",
+                                                          "png", "svg"))
     assert not (project / "results" / "figures").exists()
     log = (project / "logs" / "figures" / f"{TARGET}.log").read_text()
     assert f"alt/figures/{TARGET}" in log
