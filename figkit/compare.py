@@ -549,6 +549,13 @@ def _relative_note(old, new) -> str:
     return note
 
 
+def _md(text) -> str:
+    """Text from sidecars (figure ids, cautions quoting data values) for changes.md: '&' and '<'
+    as HTML entities, so a Markdown viewer that passes HTML through shows them as text (raw HTML
+    starts with '<', CommonMark 0.31 section 6.6; entities, section 2.5); '>' stays ('->')."""
+    return str(text).replace("&", "&amp;").replace("<", "&lt;")
+
+
 def _short_hash(h) -> str | None:
     return h[:12] if isinstance(h, str) else h
 
@@ -1171,23 +1178,23 @@ class Report:
             md += ["## Data files changed", ""] + [
                 f"- `{p}`: `{_short_hash(a)}` -> `{_short_hash(b)}`" for p, a, b in self.data_changes] + [""]
         if self.added:
-            md += ["## Figures added", ""] + [f"- {i}" for i in self.added] + [""]
+            md += ["## Figures added", ""] + [f"- {_md(i)}" for i in self.added] + [""]
         if self.removed:
-            md += ["## Figures removed", ""] + [f"- {i}" for i in self.removed] + [""]
+            md += ["## Figures removed", ""] + [f"- {_md(i)}" for i in self.removed] + [""]
         for f in self.changed:
-            md += [f"## {f.id}", ""]
+            md += [f"## {_md(f.id)}", ""]
             if f.conclusions:
                 md += ["Changes a reader's conclusion:", ""]
-                md += [f"- **{c.brief}**" for c in f.conclusions] + [""]
+                md += [f"- **{_md(c.brief)}**" for c in f.conclusions] + [""]
             md += [f"- {f.pixel_text()}"]
-            md += [f"- {c.detail}" for c in f.changes]
+            md += [f"- {_md(c.detail)}" for c in f.changes]
             if f.diff_png is not None:
-                md += ["", f"![where {f.id} changed]({f.diff_png.name})", "",
+                md += ["", f"![where {_md(f.id)} changed]({f.diff_png.name})", "",
                        "Grey: old render; vermillion: ink added; blue: ink removed; "
                        "purple: colour changed."]
             md.append("")
         if self.unchanged:
-            md += ["Unchanged: " + ", ".join(f.id for f in self.unchanged) + ".", ""]
+            md += ["Unchanged: " + ", ".join(_md(f.id) for f in self.unchanged) + ".", ""]
         return "\n".join(md)
 
     def as_dict(self) -> dict:

@@ -650,3 +650,17 @@ def test_builds_without_png_say_their_pixels_were_not_compared(tmp_path, capsys)
     capsys.readouterr()
     assert main(["check", "v1", "--project", str(root)]) == 0
     assert "no PNG to compare, numbers checked only: h" in capsys.readouterr().out
+
+
+def test_changes_md_shows_markup_from_sidecars_as_text(tmp_path):
+    """A caution quoting a data value that looks like HTML reaches changes.md as entities
+    (CommonMark passes raw HTML through; entities are shown as the characters)."""
+    old = {"id": "x", "panels": [{"label": "p", "n": 10}], "cautions": []}
+    new = {"id": "x", "panels": [{"label": "p", "n": 10}],
+           "cautions": ['<img src=x onerror="alert(1)"> & more']}
+    for side, sc in (("old", old), ("new", new)):
+        (tmp_path / side).mkdir()
+        (tmp_path / side / "x.json").write_text(json.dumps(sc))
+    CMP.compare_folders(tmp_path / "old", tmp_path / "new", tmp_path / "out")
+    md = (tmp_path / "out" / "changes.md").read_text()
+    assert "<img" not in md and '&lt;img src=x onerror="alert(1)"> &amp; more' in md
