@@ -664,8 +664,10 @@ def compare_sidecars(old: dict, new: dict, *, rel_tol: float = 1e-9) -> list[Cha
                 add(f"panel '{label}' {key}", o, n, _relative_note(o, n))
         covers = [_covers_zero(s) for s in (so, sn)]
         if None not in covers and covers[0] != covers[1]:
+            drawn = _line_trend(po) or _line_trend(pn)
             add(f"panel '{label}' slope CI", _ci(so), _ci(sn),
-                "now includes 0" if covers[1] else "now excludes 0")
+                ("now includes 0" if covers[1] else "now excludes 0")
+                + ("" if drawn else " (no trend drawn: the stats file's slope)"))
         for what, keys, value, unit in _BAR_RECORDS:
             where = f"panel '{label}' " if label else ""
             cells, rest = _keyed_changes(po.get(what), pn.get(what), keys, value, rel_tol)
@@ -1081,9 +1083,12 @@ class FigureComparison:
 
     @property
     def weight(self) -> tuple:
-        """How much changed, for ordering: conclusions first, then how unlike the pixels are."""
-        return (len(self.conclusions), 0.0 if self.ssim is None else 1.0 - self.ssim,
-                len(self.details))
+        """How much changed, for ordering: conclusions first (changes of order, which come in
+        numbers when near-equal bars swap, after every other kind), then how unlike the pixels
+        are, then how many numbers changed."""
+        orders = sum(c.kind == "order" for c in self.conclusions)
+        return (len(self.conclusions) - orders, orders,
+                0.0 if self.ssim is None else 1.0 - self.ssim, len(self.details))
 
     def pixel_text(self) -> str:
         size = f"; size changed: {self.size_change}" if self.size_change else ""
