@@ -986,6 +986,16 @@ class _Assembly:
             ctx.cautions.append(f"{len(clashes)} text overlap(s) remain, e.g. '{a[:30]}' / '{b[:30]}'; "
                                 "try a wider size preset or fewer panel columns")
 
+    def _axis_ranges(self) -> dict:
+        out = {}
+        for name, numeric, get in (("x_range", self.spec.chart.x == "numeric", "get_xlim"),
+                                   ("y_range", self.spec.chart.y == "numeric", "get_ylim")):
+            if not numeric or not self.axes:
+                continue
+            ranges = [[float(f"{v:.6g}") for v in getattr(ax, get)()] for ax in self.axes]
+            out[name] = ranges[0] if all(r == ranges[0] for r in ranges) else ranges
+        return out
+
     def record(self) -> dict:
         """Layout and per-panel numbers for the sidecar."""
         grid, ctx, key = self.grid, self.ctx, self.key
@@ -1001,6 +1011,9 @@ class _Assembly:
                        "x_label_angle": angle if category_texts else 0,
                        "x_labels_two_lines": bool(category_texts and two),
                        "title_lines": self.title_lines,
+                       # the numeric axes' ranges as drawn (one per panel where ranges are own):
+                       # a comparison of builds says when the axes moved under the data
+                       **self._axis_ranges(),
                        "titles_shortened": sum(ELLIPSIS in t and ELLIPSIS not in s
                                                for t, s in zip(self.shown_titles, self.title_texts))},
             "panel_records": self.records,

@@ -168,6 +168,12 @@ def _figure_section(fc: FigureComparison, img_dir: Path, n: int) -> str:
             f'{_hex(INK_REMOVED)}"></span>ink removed<span class="swatch" style="background:'
             f'{_hex(INK_RECOLOURED)}"></span>colour changed</p></div>'
             '</div>')
+    moved = [c for c in fc.details if c.what in ("layout x_range", "layout y_range")]
+    if moved:
+        parts.append('<p class="key"><b>The axes moved</b> (' + _e("; ".join(
+            f"{c.what.split()[-1].replace('_', ' ')} {_show(c.old)} to {_show(c.new)}"
+            for c in moved)) + "): in the overlaid and in-turn views a mark can shift because "
+            "its axis did; read values by the tick labels.</p>")
     parts.append(f'<p class="pixels">{_e(fc.pixel_text())}</p>')
     parts.append(_numbers_table(fc.conclusions + fc.details))
     if fc.provenance:

@@ -664,3 +664,28 @@ def test_changes_md_shows_markup_from_sidecars_as_text(tmp_path):
     CMP.compare_folders(tmp_path / "old", tmp_path / "new", tmp_path / "out")
     md = (tmp_path / "out" / "changes.md").read_text()
     assert "<img" not in md and '&lt;img src=x onerror="alert(1)"> &amp; more' in md
+
+
+def test_axis_ranges_are_recorded_and_a_moved_axis_is_reported(tmp_path):
+    """The sidecar records each numeric axis's drawn range; it holds every data value (pandas
+    min/max); when new data widen the range, compare says the axis moved."""
+    rng = np.random.default_rng(12)
+    old = pd.DataFrame({"site": "n", "dose": rng.uniform(0, 10, 40).round(3),
+                        "growth": rng.uniform(0, 5, 40).round(3)})
+    new = old.copy()
+    new.loc[0, "dose"] = 30.0
+    rows = [{"id": "g", "dataset": "obs", "chart": "scatter", "x": "dose", "y": "growth",
+             "size": "single"}]
+    project, report = _two_versions(tmp_path, rows, old, new)
+    sc = json.loads((project.config.results / "figures" / "g.json").read_text())
+    lo, hi = sc["layout"]["x_range"]
+    assert lo <= new["dose"].min() and new["dose"].max() <= hi
+    lo, hi = sc["layout"]["y_range"]
+    assert lo <= new["growth"].min() and new["growth"].max() <= hi
+    (fc,) = report.figures
+    moved = {c.what: c for c in fc.details}
+    assert "layout x_range" in moved and moved["layout x_range"].new[1] >= 30.0
+    from figkit.review import write_review
+    page = write_review(report, S.Build("a", tmp_path / "x"), S.Build("b", tmp_path / "y"),
+                        tmp_path / "r")
+    assert "The axes moved" in page.read_text()
