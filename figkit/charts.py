@@ -109,6 +109,10 @@ def draw_trend(ax, panel: Panel, ctx: Context, rec: dict) -> None:
     if spec.trend == "none":
         return
     what = "straight-line fit" if spec.trend == "line" else "LOESS smoother"
+    from .scales import axis_scales
+    scaled = axis_scales(spec)
+    fitted_in = {"x": f"{scaled['x'][0]}(x)" if "x" in scaled else "x",
+                 "y": f"{scaled['y'][0]}(y)" if "y" in scaled else "y"}
     tally = panel.tally
     if tally is not None:       # streamed data: the line comes from the panel's one-pass sums
         n, lo, hi = tally.n, tally.x_min, tally.x_max
@@ -129,14 +133,15 @@ def draw_trend(ax, panel: Panel, ctx: Context, rec: dict) -> None:
         ax.fill_between(grid, band_lo, band_hi, color=TREND, alpha=BAND_ALPHA, linewidth=0, zorder=3)
         ax.plot(grid, yhat, color=TREND, linewidth=0.9, zorder=4, solid_capstyle="butt")
         rec["trend"] = {"kind": "line", "slope": fit.slope, "intercept": fit.intercept,
-                        "slope_ci": [fit.slope_ci_low, fit.slope_ci_high], "r": fit.r, "n": fit.n}
+                        "slope_ci": [fit.slope_ci_low, fit.slope_ci_high], "r": fit.r, "n": fit.n,
+                        "fitted_in": fitted_in}
     else:
         o = spec.options
         xs, ys = stats.loess(x, y, span=o.get("span", 0.75), degree=o.get("degree", 1),
                              iterations=o.get("robust", 0))
         ax.plot(xs, ys, color=TREND, linewidth=0.9, zorder=4)
         rec["trend"] = {"kind": "loess", "span": o.get("span", 0.75), "degree": o.get("degree", 1),
-                        "robust_iterations": o.get("robust", 0), "n": len(x)}
+                        "robust_iterations": o.get("robust", 0), "n": len(x), "fitted_in": fitted_in}
 
 
 # ---------------------------------------------------------------------------- scatter
@@ -363,7 +368,9 @@ def draw_hexbins(ax, panel: Panel, ctx: Context) -> dict:
     ax.set_xlim(*sh["xlim"])
     ax.set_ylim(*sh["ylim"])
     sh["hex_collections"].append(coll)
-    rec.update(max_count=int(counts.max()) if counts.size else 0)
+    rec.update(max_count=int(counts.max()) if counts.size else 0, cells_filled=int(keep.sum()),
+               lattice={"x": [float(grid.xmin), float(grid.xmax)],
+                        "y": [float(grid.ymin), float(grid.ymax)], "cells_across": grid.nx})
     draw_trend(ax, panel, ctx, rec)
     return rec
 
@@ -515,7 +522,9 @@ def prepare_histogram(ctx: Context) -> None:
     x = _values(panels, spec.x)
     rule = spec.options.get("bins", "fd")
     rule = int(float(rule)) if rule not in ("fd", "sturges") else rule
-    exact = spec.options.get("edges", "aligned") == "exact"
+    # On a scaled axis the recorded grid of the raw values says nothing about log10 values.
+    exact = spec.options.get("edges", "aligned") == "exact" or \
+        spec.options.get("x_scale", "linear") != "linear"
     streamed = getattr(ctx.data, "streamed", None)
     if streamed and streamed.get("bin_edges"):      # counted while streaming, on these edges
         edges = np.asarray(streamed["bin_edges"])

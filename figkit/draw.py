@@ -646,6 +646,10 @@ class _Assembly:
                     ax.grid(True, axis=grid_axis)
                 if spec.chart.x == "categorical":
                     ax.grid(False, axis="x")
+        from .scales import axis_scales, set_axis_ticks
+        for role, (name, _fld) in axis_scales(spec).items():
+            for ax in axes:     # ticks at powers of ten, labelled with the untransformed values
+                set_axis_ticks(ax, role, name, float(spec.options.get("threshold", 1.0)))
 
     def prepare_texts(self) -> None:
         """The texts whose room the layout measures: panel titles (the letter leads), the
@@ -1017,6 +1021,9 @@ class _Assembly:
 def _y_title(spec: FigureSpec) -> str:
     if spec.y and spec.chart.y is not None:
         return spec.axis_title(spec.y)
+    scaled = spec.options.get("x_scale", "linear")
+    if spec.chart.name == "density" and scaled != "linear":   # the curve is a density of t(x)
+        return "Density per log10 unit" if scaled == "log10" else "Density (symmetric log units)"
     return {"histogram": "Count", "density": "Density",
             "count-bars": spec.axis_title(spec.weight) if spec.weight else "Count",
             "shares": "Share" + (f" of {spec.axis_title(spec.weight).lower()}" if spec.weight else "")

@@ -235,6 +235,8 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
         panels = []
         for p, rec in zip(data.panels, drawn["panel_records"]):
             entry = {"label": p.label, "keys": p.keys, "n": p.n, "n_dropped": p.n_dropped}
+            if data.scales:
+                entry["scale_dropped"] = dict(getattr(p, "scale_dropped", {}) or {})
             if p.cell is not None:
                 entry["cell"] = list(p.cell)
             entry["stats"] = panel_stats.get(p.label)
@@ -269,6 +271,14 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
             cautions.append("confidence band, slope intervals and the strata F-test treat every "
                             "row as independent; repeated readings of the same units (sites, "
                             "patients) make them look more precise than they are")
+        y_scale = (data.scales or {}).get("y", {}).get("scale")
+        if spec.trend == "line" and y_scale == "log10":
+            cautions.append("the straight line is fitted to log10(y): on the data's own scale it is "
+                            "an exponential fit, y = 10^(intercept + slope * x), and its slope is a "
+                            "change in log10 units (a factor of 10^slope per x unit)")
+        elif spec.trend == "line" and y_scale == "symlog":
+            cautions.append("the straight line is fitted to the symmetric log of y: on the data's "
+                            "own scale it is neither straight nor exponential")
         if spec.trend == "loess":
             cautions.append("LOESS shows a local average; its shape depends on the span "
                             f"({spec.options.get('span', 0.75)}) and says nothing about uncertainty")
@@ -289,6 +299,7 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
             "rows_read": data.n_read, "rows_kept": data.n_kept, "rows_without_stratum": data.n_unassigned,
             "missing_values": dict(data.missing or {}),   # field -> rows of the panels missing it
             "strata_test": strata,
+            "scales": data.scales or None,   # axis -> scale, how drawn, values dropped
             "colours": {"used": drawn["colours"], "min_delta_e": sep.min_delta_e},
             "min_font_pt": sizes.min_font_pt,
             "min_line_pt": sizes.min_line_pt,
