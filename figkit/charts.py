@@ -469,6 +469,111 @@ def draw_violin(ax, panel: Panel, ctx: Context) -> dict:
             "quartile_method": stats.QUARTILE_METHOD_TEXT["linear"]}
 
 
+# ---------------------------------------------------------------------------- group means
+
+MEANS_SLOT = 0.8         # share of an x group's width taken by its colour groups side by side
+
+
+def _mean_interval(v: np.ndarray, spec: FigureSpec):
+    o = spec.options
+    if o.get("interval", "t") == "bootstrap":
+        return stats.mean_bootstrap_interval(v, o.get("resamples", 4000), o.get("seed", 20261202))
+    return stats.mean_t_interval(v)
+
+
+def prepare_means(ctx: Context) -> None:
+    """Every group's mean and interval once (the y range must hold every interval end and, when
+    drawn, every raw point); the raw points' opacity from the densest marker-sized cell, as for
+    scatter (choose_drawing), one choice for the figure."""
+    spec, panels = ctx.spec, ctx.data.panels
+    ctx.shared["xlevels"] = levels = _levels(ctx, spec.x)
+    groups = list(ctx.colours.items()) if ctx.colours else [(None, NEUTRAL)]
+    k = len(groups)
+    width = MEANS_SLOT / k
+    rng = np.random.default_rng(JITTER_SEED)
+    results, ends, coords, densest = {}, [], {}, 0
+    show = spec.options.get("points", "none") != "none"
+    marker_mm = pt_to_mm(float(spec.style.rc.get("lines.markersize", 2.5)))
+    cells = (max(1, int(ctx.panel_mm[0] / marker_mm)), max(1, int(ctx.panel_mm[1] / marker_mm)))
+    y_all = _values(panels, spec.y)
+    ylim_pts = padded_range(np.nanmin(y_all), np.nanmax(y_all)) if y_all.size else (0, 1)
+    for p in panels:
+        rows = []
+        if p.n:
+            keys = [spec.x] + ([spec.colour] if spec.colour else [])
+            by = dict(iter(p.frame.groupby(keys if len(keys) > 1 else keys[0], sort=False, observed=True)))
+            px, py = [], []
+            for i, lv in enumerate(levels):
+                for j, (level, hexc) in enumerate(groups):
+                    part = by.get((lv, level) if spec.colour else lv)
+                    if part is None or len(part) == 0:
+                        continue
+                    v = part[spec.y].to_numpy(dtype=float)
+                    res = _mean_interval(v, spec)
+                    pos = i - MEANS_SLOT / 2 + width * (j + 0.5)
+                    rows.append((i, lv, level, hexc, pos, res))
+                    ends += [res.mean] + ([res.low, res.high] if res.low is not None else [])
+                    if show:   # jittered sideways within a third of the group's slot (fixed seed)
+                        px.append(pos + rng.uniform(-width / 3, width / 3, size=len(v)))
+                        py.append(v)
+            if show and px:
+                cx, cy = np.concatenate(px), np.concatenate(py)
+                coords[id(p)] = (px, py)
+                densest = max(densest, int(_cell_counts(
+                    cx, cy, (-0.6, len(levels) - 0.4), ylim_pts, cells).max()))
+        results[id(p)] = rows
+    lo, hi = (min(ends), max(ends)) if ends else (0.0, 1.0)
+    if show and y_all.size:
+        lo, hi = min(lo, float(np.nanmin(y_all))), max(hi, float(np.nanmax(y_all)))
+    ctx.shared["ylim"] = padded_range(lo, hi)
+    forced = spec.options.get("points", "none")
+    mode, alpha = choose_drawing(densest, "auto" if forced == "none" else forced)
+    if mode == "bins":          # bins would hide the means' own groups: lowest opacity instead
+        mode, alpha = "translucent", MIN_ALPHA
+    ctx.shared.update(means=results, mean_coords=coords, mode=mode if show else "none",
+                      alpha=alpha, densest=densest, slot=width)
+
+
+def draw_means(ax, panel: Panel, ctx: Context) -> dict:
+    """One dot per group at its mean and a vertical line over its interval; no bar (a bar's
+    area would stand for a mean down to zero and hide the spread: docs/cautions.md)."""
+    spec, sh = ctx.spec, ctx.shared
+    markers = cue_markers(ctx)
+    size = float(spec.style.rc.get("lines.markersize", 2.5))
+    if sh["mode"] != "none" and id(panel) in sh["mean_coords"]:
+        px, py = sh["mean_coords"][id(panel)]
+        rows = sh["means"][id(panel)]
+        for (_i, _lv, _level, hexc, _pos, _res), gx, gy in zip(rows, px, py):
+            ax.scatter(gx, gy, s=size ** 2 * 0.6, linewidths=0, color=ctx.use(hexc or NEUTRAL),
+                       alpha=None if sh["mode"] == "points" else max(sh["alpha"] * 0.6, 0.06),
+                       rasterized=len(gx) > 2000, zorder=1)
+    groups = []
+    few = []
+    for i, lv, level, hexc, pos, res in sh["means"][id(panel)]:
+        colour = ctx.use(hexc or NEUTRAL)
+        if res.low is not None:
+            ax.plot([pos, pos], [res.low, res.high], color=colour, linewidth=1.0,
+                    solid_capstyle="butt", zorder=3)
+        ax.plot([pos], [res.mean], marker=markers.get(level, "o"), markersize=size * 1.5,
+                color=colour, markeredgecolor="white", markeredgewidth=0.4, linestyle="none", zorder=4)
+        if res.n < FEW_POINTS:
+            few.append(res.n)
+        name = shown(lv) if level is None else f"{shown(lv)} / {shown(level)}"
+        groups.append({"group": name, "x": lv, "colour_group": level, "n": res.n, "mean": res.mean,
+                       "sd": res.sd, "ci_low": res.low, "ci_high": res.high,
+                       "interval": res.method})
+    if few:
+        ctx.cautions.append(f"panel '{panel.label or 'all'}': {len(few)} group(s) with fewer than "
+                            f"{FEW_POINTS} rows (smallest n = {min(few)}); "
+                            + ("an interval needs n >= 2" if min(few) < 2 else
+                               "their intervals rest on the normality of the mean"))
+    _category_axis(ax, ctx.shared["xlevels"])
+    rec = {"groups": groups, "level": 0.95}
+    if sh["mode"] != "none":
+        rec.update(points=sh["mode"], alpha=sh["alpha"], jitter_seed=JITTER_SEED)
+    return rec
+
+
 def _bandwidth_rule(text: str):
     return text if text in ("scott", "silverman") else float(text)
 
@@ -690,6 +795,7 @@ DRAWERS = {
     "hexbins": Drawer(prepare_hexbins, draw_hexbins, finish_hexbins, colour_bar=True),
     "box": Drawer(prepare_groups_y, draw_box),
     "violin": Drawer(prepare_groups_y, draw_violin),
+    "means": Drawer(prepare_means, draw_means),
     "density": Drawer(prepare_density, draw_density, zero_y=True),
     "histogram": Drawer(prepare_histogram, draw_histogram, zero_y=True),
     "count-bars": Drawer(prepare_counts, draw_count_bars, zero_y=True),

@@ -60,6 +60,13 @@ CHARTS: dict[str, ChartKind] = {c.name: c for c in [
                                                  "quartiles": (str, "linear", ("linear", "hinges")),
                                                  **_Y_SCALE},
               summary="Tukey box plot of y per x group"),
+    ChartKind("means", CATEGORY, NUMERIC, colour=(CATEGORY,),
+              options={"interval": (str, "t", ("t", "bootstrap")),
+                       "resamples": (int, 4000, "bootstrap resamples, 500-100000"),
+                       "seed": (int, 20261202, "a whole number (the bootstrap's fixed seed)"),
+                       "points": (str, "none", ("none", "auto", "points", "translucent")),
+                       "shapes": (str, "no", ("yes", "no")), **_Y_SCALE},
+              summary="mean of y per x group (side by side per colour group) with its 95% interval"),
     ChartKind("violin", CATEGORY, NUMERIC, options={"bandwidth": (str, "scott", "scott, silverman or a number"),
                                                     **_Y_SCALE},
               summary="mirrored kernel density of y per x group, quartiles marked"),
@@ -186,11 +193,12 @@ def _parse_options(text: str | None, kind: ChartKind, err) -> dict:
 def _check_option_ranges(opts: dict, err) -> None:
     checks = {"span": lambda v: 0 < v <= 1, "robust": lambda v: 0 <= v <= 5,
               "cells": lambda v: 5 <= v <= 200, "whisker": lambda v: v > 0,
-              "threshold": lambda v: v > 0}
+              "threshold": lambda v: v > 0, "resamples": lambda v: 500 <= v <= 100000}
     for key, ok in checks.items():
         if key in opts and not ok(opts[key]):
             limits = {"span": "0 < span <= 1", "robust": "0 to 5", "cells": "5 to 200",
-                      "whisker": "above 0", "threshold": "above 0"}[key]
+                      "whisker": "above 0", "threshold": "above 0",
+                      "resamples": "500 to 100000"}[key]
             raise err(f"option '{key}' out of range", field="options", value=opts[key], allowed=limits)
     for key in ("bandwidth", "bins"):
         v = opts.get(key)

@@ -740,6 +740,64 @@ def wilson_interval(k, n, level: float = 0.95):
     return low, high
 
 
+# ------------------------------------------------------------------------ group means
+@dataclass(frozen=True)
+class MeanInterval:
+    """A group's mean with a confidence interval (``low``/``high`` None when n < 2)."""
+    n: int
+    mean: float
+    sd: float | None
+    low: float | None
+    high: float | None
+    method: str          # "t" or "bootstrap"
+
+
+def mean_t_interval(values, level: float = 0.95) -> MeanInterval:
+    """Mean and Student-t confidence interval (Student 1908):
+
+        mean +/- t_{(1+level)/2, n-1} * s / sqrt(n),   s^2 = sum (x - mean)^2 / (n - 1).
+
+    Assumes independent observations and a sampling distribution of the mean close to normal.
+    """
+    level = _check_level(level)
+    v = _finite(values, "y")
+    n = int(v.size)
+    if n == 0:
+        raise FigkitError("a mean needs at least one value", field="y")
+    mean = float(v.mean())
+    if n < 2:
+        return MeanInterval(n, mean, None, None, None, "t")
+    sd = float(v.std(ddof=1))
+    half = _t_quantile(level, n - 1) * sd / math.sqrt(n)
+    return MeanInterval(n, mean, sd, mean - half, mean + half, "t")
+
+
+BOOTSTRAP_CHUNK = 256     # resamples drawn at once: memory stays at 256 * n values
+
+
+def mean_bootstrap_interval(values, resamples: int = 4000, seed: int = 20261202,
+                            level: float = 0.95) -> MeanInterval:
+    """Mean and percentile bootstrap interval (Efron & Tibshirani 1993, ch. 13): the
+    (1-level)/2 and (1+level)/2 quantiles (numpy's linear method) of the means of ``resamples``
+    resamples of size n drawn with replacement, from numpy's default generator seeded with
+    ``seed`` (the same interval on every rebuild)."""
+    level = _check_level(level)
+    v = _finite(values, "y")
+    n = int(v.size)
+    if n == 0:
+        raise FigkitError("a mean needs at least one value", field="y")
+    mean = float(v.mean())
+    if n < 2:
+        return MeanInterval(n, mean, None, None, None, "bootstrap")
+    rng = np.random.default_rng(seed)
+    means = np.empty(int(resamples))
+    for start in range(0, int(resamples), BOOTSTRAP_CHUNK):
+        k = min(BOOTSTRAP_CHUNK, int(resamples) - start)
+        means[start:start + k] = v[rng.integers(0, n, size=(k, n))].mean(axis=1)
+    low, high = np.percentile(means, [50.0 * (1 - level), 50.0 * (1 + level)])
+    return MeanInterval(n, mean, float(v.std(ddof=1)), float(low), float(high), "bootstrap")
+
+
 def shares(counts) -> np.ndarray:
     """Proportions within each group: counts / row total (rows sum to 1).
 
