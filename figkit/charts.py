@@ -574,6 +574,102 @@ def draw_means(ax, panel: Panel, ctx: Context) -> dict:
     return rec
 
 
+# ---------------------------------------------------------------------------- lines over x
+
+GAP_FACTOR = 1.5     # gap=auto: a step over 1.5 times the usual step between x values breaks
+
+
+def _line_gap(ctx: Context, x: np.ndarray) -> tuple[float | None, str]:
+    """The largest step a line bridges, and how it was chosen.  auto: 1.5 times the median step
+    between the figure's distinct x values (a regular series with one missing period breaks
+    there); none: every step is bridged; a number: that step."""
+    gap = ctx.spec.options.get("gap", "auto")
+    if gap == "none":
+        return None, "none: every step between x values is bridged"
+    if gap != "auto":
+        return float(gap), f"steps over {float(gap):g} x units break the line (gap={gap})"
+    u = np.unique(x)
+    if u.size < 3:
+        return None, "auto: fewer than three x values, nothing to break"
+    step = float(np.median(np.diff(u)))
+    return GAP_FACTOR * step, (f"auto: steps over {GAP_FACTOR:g} times the median step "
+                               f"({step:g}) between x values break the line")
+
+
+def prepare_lines(ctx: Context) -> None:
+    """Per panel and colour group: the per-x means with their t intervals (stats.per_x_means),
+    one gap rule for the figure, and a y range holding every mean and band end."""
+    spec, panels = ctx.spec, ctx.data.panels
+    x_all = _values(panels, spec.x)
+    max_step, rule = _line_gap(ctx, x_all)
+    ctx.shared["xlim"] = padded_range(np.nanmin(x_all), np.nanmax(x_all)) if x_all.size else (0, 1)
+    ends, tables = [], {}
+    for p in panels:
+        rows = []
+        for level, hexc, part in _groups(p, ctx):
+            if len(part) == 0:
+                continue
+            xs, n, mean, low, high = stats.per_x_means(part[spec.x].to_numpy(dtype=float),
+                                                       part[spec.y].to_numpy(dtype=float))
+            rows.append((level, hexc, xs, n, mean, low, high, stats.line_runs(xs, max_step)))
+            ends += [np.nanmin(mean), np.nanmax(mean)]
+            if spec.options.get("band", "yes") == "yes" and np.isfinite(low).any():
+                ends += [np.nanmin(low), np.nanmax(high)]
+        tables[id(p)] = rows
+    lo, hi = (min(ends), max(ends)) if ends else (0.0, 1.0)
+    ctx.shared["ylim"] = padded_range(lo, hi)
+    ctx.shared.update(line_tables=tables, gap_rule=rule, max_step=max_step)
+    if spec.options.get("gap", "auto") == "none":
+        ctx.cautions.append("gap=none: lines bridge every step between x values, also missing "
+                            "periods, and so draw values that were never measured")
+
+
+def _line_cues(ctx: Context) -> tuple[dict, dict]:
+    """Markers and dash patterns, one each per colour group in legend order (readable in
+    greyscale); a single line is solid with round markers."""
+    if not ctx.colours:
+        return {}, {}
+    order = list(ctx.colours)
+    return ({lv: MARKER_SHAPES[i % len(MARKER_SHAPES)] for i, lv in enumerate(order)},
+            {lv: DASH_PATTERNS[i % len(DASH_PATTERNS)] for i, lv in enumerate(order)})
+
+
+def draw_lines(ax, panel: Panel, ctx: Context) -> dict:
+    spec, sh = ctx.spec, ctx.shared
+    markers, dashes = _line_cues(ctx)
+    size = float(spec.style.rc.get("lines.markersize", 2.5))
+    band = spec.options.get("band", "yes") == "yes"
+    groups, repeated = [], False
+    for level, hexc, xs, n, mean, low, high, runs in sh["line_tables"][id(panel)]:
+        colour = ctx.use(hexc or NEUTRAL)
+        per_x = bool((n > 1).any())
+        repeated |= per_x
+        for a, b in runs:
+            if band and per_x and b - a > 1:
+                ok = np.isfinite(low[a:b])
+                ax.fill_between(xs[a:b], np.where(ok, low[a:b], mean[a:b]),
+                                np.where(ok, high[a:b], mean[a:b]), color=colour,
+                                alpha=BAND_ALPHA, linewidth=0, zorder=2)
+            ax.plot(xs[a:b], mean[a:b], color=colour, linewidth=1.0, zorder=3,
+                    linestyle=dashes.get(level, "-"), marker=markers.get(level, "o"),
+                    markersize=size * 1.2, markeredgecolor="white", markeredgewidth=0.3)
+        groups.append({"group": level, "n": int(n.sum()), "x_values": int(len(xs)),
+                       "segments": len(runs), "breaks": [float(xs[a]) for a, _ in runs[1:]],
+                       "per_x": [{"x": float(xs[i]), "n": int(n[i]), "mean": float(mean[i]),
+                                  "ci_low": None if not np.isfinite(low[i]) else float(low[i]),
+                                  "ci_high": None if not np.isfinite(high[i]) else float(high[i])}
+                                 for i in range(len(xs))]})
+    rec = {"groups": groups, "gap": sh["gap_rule"],
+           "line_is": ("the mean of y at each x (x values repeat), with its 95% t interval "
+                       "as a band" if band else "the mean of y at each x (x values repeat)")
+           if repeated else "the single value of y at each x"}
+    if repeated:
+        few = min((pt["n"] for g in groups for pt in g["per_x"]), default=0)
+        if few < 2:
+            rec.setdefault("notes", []).append("x values with a single row have no interval")
+    return rec
+
+
 def _bandwidth_rule(text: str):
     return text if text in ("scott", "silverman") else float(text)
 
@@ -796,6 +892,7 @@ DRAWERS = {
     "box": Drawer(prepare_groups_y, draw_box),
     "violin": Drawer(prepare_groups_y, draw_violin),
     "means": Drawer(prepare_means, draw_means),
+    "lines": Drawer(prepare_lines, draw_lines),
     "density": Drawer(prepare_density, draw_density, zero_y=True),
     "histogram": Drawer(prepare_histogram, draw_histogram, zero_y=True),
     "count-bars": Drawer(prepare_counts, draw_count_bars, zero_y=True),

@@ -334,6 +334,12 @@ def _legend_handles(ctx: Context, spec: FigureSpec) -> list:
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
     from .charts import cue_dashes, cue_markers
+    if spec.chart.name == "lines":   # marker and dash pattern per group, as drawn
+        from .charts import _line_cues
+        markers, dashes = _line_cues(ctx)
+        return [Line2D([], [], color=hexc, linewidth=1.0, linestyle=dashes[level],
+                       marker=markers[level], markersize=3.5, markeredgecolor="white",
+                       markeredgewidth=0.3, label=shown(level)) for level, hexc in ctx.colours.items()]
     if spec.chart.name == "means":   # a dot on its interval line, as drawn
         markers = cue_markers(ctx)
         return [Line2D([], [], color=hexc, linewidth=1.0, marker=markers.get(level, "o"),
@@ -432,7 +438,8 @@ def _pin_ticks(fig) -> None:
 
 _PREPARING = {"histogram": "binning", "hexbins": "binning", "scatter": "measuring overlap",
               "density": "estimating densities", "violin": "estimating densities",
-              "box": "computing box statistics", "means": "computing means and intervals", "count-bars": "counting", "shares": "counting",
+              "box": "computing box statistics", "means": "computing means and intervals",
+              "lines": "computing means per x", "count-bars": "counting", "shares": "counting",
               "tiles": "counting"}
 
 

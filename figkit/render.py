@@ -60,6 +60,12 @@ def drawn_values(spec: FigureSpec, panels: list[dict], edges=None) -> list[dict]
         elif kind == "tiles":
             for e in p.get("tiles", []):
                 add(e["count"], measure, x=e["x"], y=e["y"])
+        elif kind == "lines":
+            for g in p.get("groups", []):
+                for pt in g.get("per_x", []):
+                    for m in ("n", "mean", "ci_low", "ci_high"):
+                        if pt[m] is not None:
+                            add(pt[m], m, x=pt["x"], group=g["group"])
         elif kind == "means":
             for g in p.get("groups", []):
                 for m in ("n", "mean", "sd", "ci_low", "ci_high"):
@@ -268,13 +274,14 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
         # Greyscale is information, as in preflight ("not judged"): said with its remedy, and
         # not at all where the figure already carries a non-colour cue for its groups.
         cue = next((o for o in ("shapes", "dashes") if o in spec.chart.options), None)
-        if not (cue and spec.options.get(cue) == "yes"):
+        # lines always carry a marker and a dash pattern per group (charts._line_cues)
+        if not (cue and spec.options.get(cue) == "yes") and spec.chart.name != "lines":
             remedy = f"; add {cue}=yes under options for a cue that is not colour" if cue else ""
             cautions += [f"{c}: not judged, but a greyscale print would merge these groups{remedy}"
                          for c in collisions if "greyscale" in c]
         if spec.ranges != "common" and len(data.panels) > 1 and spec.chart.name in (
                 "count-bars", "histogram", "density", "shares", "scatter", "hexbins", "box", "violin",
-                "means"):
+                "means", "lines"):
             cautions.append(f"ranges are '{spec.ranges}': panels have their own axis ranges, so "
                             "compare shapes within a panel, not heights across panels")
         if spec.trend != "none" and spec.colour and spec.colour in data.levels:
@@ -293,6 +300,10 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
         elif spec.trend == "line" and y_scale == "symlog":
             cautions.append("the straight line is fitted to the symmetric log of y: on the data's "
                             "own scale it is neither straight nor exponential")
+        if spec.chart.name == "lines" and any("x values repeat" in r.get("line_is", "")
+                                              for r in drawn["panel_records"]):
+            cautions.append("lines join the mean of y at each x (x values repeat); the band is each "
+                            "mean's 95% t interval, treating every row as independent")
         if spec.chart.name == "means":
             how = ("percentile bootstrap of the mean (Efron & Tibshirani 1993), "
                    f"{spec.options.get('resamples', 4000)} resamples, seed {spec.options.get('seed', 20261202)}"

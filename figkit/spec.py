@@ -60,6 +60,11 @@ CHARTS: dict[str, ChartKind] = {c.name: c for c in [
                                                  "quartiles": (str, "linear", ("linear", "hinges")),
                                                  **_Y_SCALE},
               summary="Tukey box plot of y per x group"),
+    ChartKind("lines", NUMERIC, NUMERIC, colour=(CATEGORY,),
+              options={"gap": (str, "auto", "auto, none or a step in x units above 0"),
+                       "band": (str, "yes", ("yes", "no")), **_XY_SCALES},
+              summary="y over an ordered x, one line per colour group (markers and dashes); "
+                      "per-x means with a 95% band where x repeats; gaps in x break the line"),
     ChartKind("means", CATEGORY, NUMERIC, colour=(CATEGORY,),
               options={"interval": (str, "t", ("t", "bootstrap")),
                        "resamples": (int, 4000, "bootstrap resamples, 500-100000"),
@@ -200,6 +205,15 @@ def _check_option_ranges(opts: dict, err) -> None:
                       "whisker": "above 0", "threshold": "above 0",
                       "resamples": "500 to 100000"}[key]
             raise err(f"option '{key}' out of range", field="options", value=opts[key], allowed=limits)
+    gap = opts.get("gap")
+    if gap is not None and gap not in ("auto", "none"):
+        try:
+            ok = 0 < float(gap) < float("inf")
+        except ValueError:
+            ok = False
+        if not ok:
+            raise err("option 'gap' not understood", field="options", value=gap,
+                      allowed="auto, none or a step in x units above 0")
     for key in ("bandwidth", "bins"):
         v = opts.get(key)
         if v is None or v in ("scott", "silverman", "fd", "sturges"):

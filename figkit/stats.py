@@ -798,6 +798,37 @@ def mean_bootstrap_interval(values, resamples: int = 4000, seed: int = 20261202,
     return MeanInterval(n, mean, float(v.std(ddof=1)), float(low), float(high), "bootstrap")
 
 
+def per_x_means(x, y, level: float = 0.95):
+    """Mean of y at each distinct x with a Student t interval where x repeats:
+    ``(xs, n, mean, low, high)``; low/high are NaN where n < 2 (no interval from one value).
+    Per x: mean +/- t_{(1+level)/2, n-1} s / sqrt(n) (as :func:`mean_t_interval`)."""
+    level = _check_level(level)
+    x, y = _pair(x, y)
+    frame = pd.DataFrame({"x": x, "y": y}).groupby("x", sort=True)["y"]
+    agg = frame.agg(["count", "mean", "std"])
+    xs = agg.index.to_numpy(dtype=float)
+    n = agg["count"].to_numpy(dtype=np.int64)
+    mean = agg["mean"].to_numpy(dtype=float)
+    sd = agg["std"].to_numpy(dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tq = np.where(n > 1, _special.stdtrit(np.maximum(n - 1, 1), 0.5 + level / 2.0), np.nan)
+        half = tq * sd / np.sqrt(n)
+    return xs, n, mean, mean - half, mean + half
+
+
+def line_runs(xs, max_step: float | None) -> list[tuple[int, int]]:
+    """Index ranges [start, stop) of sorted ``xs`` that a line joins: a step between
+    neighbours larger than ``max_step`` (a missing period) starts a new run; None joins all."""
+    xs = np.asarray(xs, dtype=float)
+    if xs.size == 0:
+        return []
+    if max_step is None:
+        return [(0, int(xs.size))]
+    cuts = np.flatnonzero(np.diff(xs) > max_step * (1 + 1e-9)) + 1
+    bounds = [0, *cuts.tolist(), int(xs.size)]
+    return list(zip(bounds[:-1], bounds[1:]))
+
+
 def shares(counts) -> np.ndarray:
     """Proportions within each group: counts / row total (rows sum to 1).
 
