@@ -37,7 +37,7 @@ def test_demo_builds_every_figure_of_the_sheet(built_demo):
     assert set(cars) == set(sheet["id"])
     charts = {c["chart"] for c in cars.values()}
     assert charts == {"scatter", "hexbins", "box", "violin", "density", "histogram", "count-bars",
-                      "shares", "tiles", "means", "lines"}
+                      "shares", "tiles"}
     # one-way and two-way splits, bands, a filter, colour and both trends are exercised
     assert any(len(c["strata"]) == 2 for c in cars.values())
     assert any(c["derived"] for c in cars.values())
