@@ -109,6 +109,10 @@ def draw_trend(ax, panel: Panel, ctx: Context, rec: dict) -> None:
     if spec.trend == "none":
         return
     what = "straight-line fit" if spec.trend == "line" else "LOESS smoother"
+    from .scales import axis_scales
+    scaled = axis_scales(spec)
+    fitted_in = {"x": f"{scaled['x'][0]}(x)" if "x" in scaled else "x",
+                 "y": f"{scaled['y'][0]}(y)" if "y" in scaled else "y"}
     tally = panel.tally
     if tally is not None:       # streamed data: the line comes from the panel's one-pass sums
         n, lo, hi = tally.n, tally.x_min, tally.x_max
@@ -129,14 +133,15 @@ def draw_trend(ax, panel: Panel, ctx: Context, rec: dict) -> None:
         ax.fill_between(grid, band_lo, band_hi, color=TREND, alpha=BAND_ALPHA, linewidth=0, zorder=3)
         ax.plot(grid, yhat, color=TREND, linewidth=0.9, zorder=4, solid_capstyle="butt")
         rec["trend"] = {"kind": "line", "slope": fit.slope, "intercept": fit.intercept,
-                        "slope_ci": [fit.slope_ci_low, fit.slope_ci_high], "r": fit.r, "n": fit.n}
+                        "slope_ci": [fit.slope_ci_low, fit.slope_ci_high], "r": fit.r, "n": fit.n,
+                        "fitted_in": fitted_in}
     else:
         o = spec.options
         xs, ys = stats.loess(x, y, span=o.get("span", 0.75), degree=o.get("degree", 1),
                              iterations=o.get("robust", 0))
         ax.plot(xs, ys, color=TREND, linewidth=0.9, zorder=4)
         rec["trend"] = {"kind": "loess", "span": o.get("span", 0.75), "degree": o.get("degree", 1),
-                        "robust_iterations": o.get("robust", 0), "n": len(x)}
+                        "robust_iterations": o.get("robust", 0), "n": len(x), "fitted_in": fitted_in}
 
 
 # ---------------------------------------------------------------------------- scatter
@@ -363,7 +368,9 @@ def draw_hexbins(ax, panel: Panel, ctx: Context) -> dict:
     ax.set_xlim(*sh["xlim"])
     ax.set_ylim(*sh["ylim"])
     sh["hex_collections"].append(coll)
-    rec.update(max_count=int(counts.max()) if counts.size else 0)
+    rec.update(max_count=int(counts.max()) if counts.size else 0, cells_filled=int(keep.sum()),
+               lattice={"x": [float(grid.xmin), float(grid.xmax)],
+                        "y": [float(grid.ymin), float(grid.ymax)], "cells_across": grid.nx})
     draw_trend(ax, panel, ctx, rec)
     return rec
 
@@ -462,6 +469,207 @@ def draw_violin(ax, panel: Panel, ctx: Context) -> dict:
             "quartile_method": stats.QUARTILE_METHOD_TEXT["linear"]}
 
 
+# ---------------------------------------------------------------------------- group means
+
+MEANS_SLOT = 0.8         # share of an x group's width taken by its colour groups side by side
+
+
+def _mean_interval(v: np.ndarray, spec: FigureSpec):
+    o = spec.options
+    if o.get("interval", "t") == "bootstrap":
+        return stats.mean_bootstrap_interval(v, o.get("resamples", 4000), o.get("seed", 20261202))
+    return stats.mean_t_interval(v)
+
+
+def prepare_means(ctx: Context) -> None:
+    """Every group's mean and interval once (the y range must hold every interval end and, when
+    drawn, every raw point); the raw points' opacity from the densest marker-sized cell, as for
+    scatter (choose_drawing), one choice for the figure."""
+    spec, panels = ctx.spec, ctx.data.panels
+    ctx.shared["xlevels"] = levels = _levels(ctx, spec.x)
+    groups = list(ctx.colours.items()) if ctx.colours else [(None, NEUTRAL)]
+    k = len(groups)
+    width = MEANS_SLOT / k
+    rng = np.random.default_rng(JITTER_SEED)
+    results, ends, coords, densest = {}, [], {}, 0
+    show = spec.options.get("points", "none") != "none"
+    marker_mm = pt_to_mm(float(spec.style.rc.get("lines.markersize", 2.5)))
+    cells = (max(1, int(ctx.panel_mm[0] / marker_mm)), max(1, int(ctx.panel_mm[1] / marker_mm)))
+    y_all = _values(panels, spec.y)
+    ylim_pts = padded_range(np.nanmin(y_all), np.nanmax(y_all)) if y_all.size else (0, 1)
+    for p in panels:
+        rows = []
+        if p.n:
+            keys = [spec.x] + ([spec.colour] if spec.colour else [])
+            by = dict(iter(p.frame.groupby(keys if len(keys) > 1 else keys[0], sort=False, observed=True)))
+            px, py = [], []
+            for i, lv in enumerate(levels):
+                for j, (level, hexc) in enumerate(groups):
+                    part = by.get((lv, level) if spec.colour else lv)
+                    if part is None or len(part) == 0:
+                        continue
+                    v = part[spec.y].to_numpy(dtype=float)
+                    res = _mean_interval(v, spec)
+                    pos = i - MEANS_SLOT / 2 + width * (j + 0.5)
+                    rows.append((i, lv, level, hexc, pos, res))
+                    ends += [res.mean] + ([res.low, res.high] if res.low is not None else [])
+                    if show:   # jittered sideways within a third of the group's slot (fixed seed)
+                        px.append(pos + rng.uniform(-width / 3, width / 3, size=len(v)))
+                        py.append(v)
+            if show and px:
+                cx, cy = np.concatenate(px), np.concatenate(py)
+                coords[id(p)] = (px, py)
+                densest = max(densest, int(_cell_counts(
+                    cx, cy, (-0.6, len(levels) - 0.4), ylim_pts, cells).max()))
+        results[id(p)] = rows
+    lo, hi = (min(ends), max(ends)) if ends else (0.0, 1.0)
+    if show and y_all.size:
+        lo, hi = min(lo, float(np.nanmin(y_all))), max(hi, float(np.nanmax(y_all)))
+    ctx.shared["ylim"] = padded_range(lo, hi)
+    forced = spec.options.get("points", "none")
+    mode, alpha = choose_drawing(densest, "auto" if forced == "none" else forced)
+    if mode == "bins":          # bins would hide the means' own groups: lowest opacity instead
+        mode, alpha = "translucent", MIN_ALPHA
+    ctx.shared.update(means=results, mean_coords=coords, mode=mode if show else "none",
+                      alpha=alpha, densest=densest, slot=width)
+
+
+def draw_means(ax, panel: Panel, ctx: Context) -> dict:
+    """One dot per group at its mean and a vertical line over its interval; no bar (a bar's
+    area would stand for a mean down to zero and hide the spread: docs/cautions.md)."""
+    spec, sh = ctx.spec, ctx.shared
+    markers = cue_markers(ctx)
+    size = float(spec.style.rc.get("lines.markersize", 2.5))
+    if sh["mode"] != "none" and id(panel) in sh["mean_coords"]:
+        px, py = sh["mean_coords"][id(panel)]
+        rows = sh["means"][id(panel)]
+        for (_i, _lv, _level, hexc, _pos, _res), gx, gy in zip(rows, px, py):
+            ax.scatter(gx, gy, s=size ** 2 * 0.6, linewidths=0, color=ctx.use(hexc or NEUTRAL),
+                       alpha=None if sh["mode"] == "points" else max(sh["alpha"] * 0.6, 0.06),
+                       rasterized=len(gx) > 2000, zorder=1)
+    groups = []
+    few = []
+    for i, lv, level, hexc, pos, res in sh["means"][id(panel)]:
+        colour = ctx.use(hexc or NEUTRAL)
+        if res.low is not None:
+            ax.plot([pos, pos], [res.low, res.high], color=colour, linewidth=1.0,
+                    solid_capstyle="butt", zorder=3)
+        ax.plot([pos], [res.mean], marker=markers.get(level, "o"), markersize=size * 1.5,
+                color=colour, markeredgecolor="white", markeredgewidth=0.4, linestyle="none", zorder=4)
+        if res.n < FEW_POINTS:
+            few.append(res.n)
+        name = shown(lv) if level is None else f"{shown(lv)} / {shown(level)}"
+        groups.append({"group": name, "x": lv, "colour_group": level, "n": res.n, "mean": res.mean,
+                       "sd": res.sd, "ci_low": res.low, "ci_high": res.high,
+                       "interval": res.method})
+    if few:
+        ctx.cautions.append(f"panel '{panel.label or 'all'}': {len(few)} group(s) with fewer than "
+                            f"{FEW_POINTS} rows (smallest n = {min(few)}); "
+                            + ("an interval needs n >= 2" if min(few) < 2 else
+                               "their intervals rest on the normality of the mean"))
+    _category_axis(ax, ctx.shared["xlevels"])
+    rec = {"groups": groups, "level": 0.95}
+    if sh["mode"] != "none":
+        rec.update(points=sh["mode"], alpha=sh["alpha"], jitter_seed=JITTER_SEED)
+    return rec
+
+
+# ---------------------------------------------------------------------------- lines over x
+
+GAP_FACTOR = 1.5     # gap=auto: a step over 1.5 times the usual step between x values breaks
+
+
+def _line_gap(ctx: Context, x: np.ndarray) -> tuple[float | None, str]:
+    """The largest step a line bridges, and how it was chosen.  auto: 1.5 times the median step
+    between the figure's distinct x values (a regular series with one missing period breaks
+    there); none: every step is bridged; a number: that step."""
+    gap = ctx.spec.options.get("gap", "auto")
+    if gap == "none":
+        return None, "none: every step between x values is bridged"
+    if gap != "auto":
+        return float(gap), f"steps over {float(gap):g} x units break the line (gap={gap})"
+    u = np.unique(x)
+    if u.size < 3:
+        return None, "auto: fewer than three x values, nothing to break"
+    step = float(np.median(np.diff(u)))
+    return GAP_FACTOR * step, (f"auto: steps over {GAP_FACTOR:g} times the median step "
+                               f"({step:g}) between x values break the line")
+
+
+def prepare_lines(ctx: Context) -> None:
+    """Per panel and colour group: the per-x means with their t intervals (stats.per_x_means),
+    one gap rule for the figure, and a y range holding every mean and band end."""
+    spec, panels = ctx.spec, ctx.data.panels
+    x_all = _values(panels, spec.x)
+    max_step, rule = _line_gap(ctx, x_all)
+    ctx.shared["xlim"] = padded_range(np.nanmin(x_all), np.nanmax(x_all)) if x_all.size else (0, 1)
+    ends, tables = [], {}
+    for p in panels:
+        rows = []
+        for level, hexc, part in _groups(p, ctx):
+            if len(part) == 0:
+                continue
+            xs, n, mean, low, high = stats.per_x_means(part[spec.x].to_numpy(dtype=float),
+                                                       part[spec.y].to_numpy(dtype=float))
+            rows.append((level, hexc, xs, n, mean, low, high, stats.line_runs(xs, max_step)))
+            ends += [np.nanmin(mean), np.nanmax(mean)]
+            if spec.options.get("band", "yes") == "yes" and np.isfinite(low).any():
+                ends += [np.nanmin(low), np.nanmax(high)]
+        tables[id(p)] = rows
+    lo, hi = (min(ends), max(ends)) if ends else (0.0, 1.0)
+    ctx.shared["ylim"] = padded_range(lo, hi)
+    ctx.shared.update(line_tables=tables, gap_rule=rule, max_step=max_step)
+    if spec.options.get("gap", "auto") == "none":
+        ctx.cautions.append("gap=none: lines bridge every step between x values, also missing "
+                            "periods, and so draw values that were never measured")
+
+
+def _line_cues(ctx: Context) -> tuple[dict, dict]:
+    """Markers and dash patterns, one each per colour group in legend order (readable in
+    greyscale); a single line is solid with round markers."""
+    if not ctx.colours:
+        return {}, {}
+    order = list(ctx.colours)
+    return ({lv: MARKER_SHAPES[i % len(MARKER_SHAPES)] for i, lv in enumerate(order)},
+            {lv: DASH_PATTERNS[i % len(DASH_PATTERNS)] for i, lv in enumerate(order)})
+
+
+def draw_lines(ax, panel: Panel, ctx: Context) -> dict:
+    spec, sh = ctx.spec, ctx.shared
+    markers, dashes = _line_cues(ctx)
+    size = float(spec.style.rc.get("lines.markersize", 2.5))
+    band = spec.options.get("band", "yes") == "yes"
+    groups, repeated = [], False
+    for level, hexc, xs, n, mean, low, high, runs in sh["line_tables"][id(panel)]:
+        colour = ctx.use(hexc or NEUTRAL)
+        per_x = bool((n > 1).any())
+        repeated |= per_x
+        for a, b in runs:
+            if band and per_x and b - a > 1:
+                ok = np.isfinite(low[a:b])
+                ax.fill_between(xs[a:b], np.where(ok, low[a:b], mean[a:b]),
+                                np.where(ok, high[a:b], mean[a:b]), color=colour,
+                                alpha=BAND_ALPHA, linewidth=0, zorder=2)
+            ax.plot(xs[a:b], mean[a:b], color=colour, linewidth=1.0, zorder=3,
+                    linestyle=dashes.get(level, "-"), marker=markers.get(level, "o"),
+                    markersize=size * 1.2, markeredgecolor="white", markeredgewidth=0.3)
+        groups.append({"group": level, "n": int(n.sum()), "x_values": int(len(xs)),
+                       "segments": len(runs), "breaks": [float(xs[a]) for a, _ in runs[1:]],
+                       "per_x": [{"x": float(xs[i]), "n": int(n[i]), "mean": float(mean[i]),
+                                  "ci_low": None if not np.isfinite(low[i]) else float(low[i]),
+                                  "ci_high": None if not np.isfinite(high[i]) else float(high[i])}
+                                 for i in range(len(xs))]})
+    rec = {"groups": groups, "gap": sh["gap_rule"],
+           "line_is": ("the mean of y at each x (x values repeat), with its 95% t interval "
+                       "as a band" if band else "the mean of y at each x (x values repeat)")
+           if repeated else "the single value of y at each x"}
+    if repeated:
+        few = min((pt["n"] for g in groups for pt in g["per_x"]), default=0)
+        if few < 2:
+            rec.setdefault("notes", []).append("x values with a single row have no interval")
+    return rec
+
+
 def _bandwidth_rule(text: str):
     return text if text in ("scott", "silverman") else float(text)
 
@@ -515,7 +723,9 @@ def prepare_histogram(ctx: Context) -> None:
     x = _values(panels, spec.x)
     rule = spec.options.get("bins", "fd")
     rule = int(float(rule)) if rule not in ("fd", "sturges") else rule
-    exact = spec.options.get("edges", "aligned") == "exact"
+    # On a scaled axis the recorded grid of the raw values says nothing about log10 values.
+    exact = spec.options.get("edges", "aligned") == "exact" or \
+        spec.options.get("x_scale", "linear") != "linear"
     streamed = getattr(ctx.data, "streamed", None)
     if streamed and streamed.get("bin_edges"):      # counted while streaming, on these edges
         edges = np.asarray(streamed["bin_edges"])
@@ -681,6 +891,8 @@ DRAWERS = {
     "hexbins": Drawer(prepare_hexbins, draw_hexbins, finish_hexbins, colour_bar=True),
     "box": Drawer(prepare_groups_y, draw_box),
     "violin": Drawer(prepare_groups_y, draw_violin),
+    "means": Drawer(prepare_means, draw_means),
+    "lines": Drawer(prepare_lines, draw_lines),
     "density": Drawer(prepare_density, draw_density, zero_y=True),
     "histogram": Drawer(prepare_histogram, draw_histogram, zero_y=True),
     "count-bars": Drawer(prepare_counts, draw_count_bars, zero_y=True),

@@ -194,6 +194,7 @@ class FigureData:
     present: dict = field(default_factory=dict)   # colour field -> values kept by the filter
     notes: list = field(default_factory=list)     # cautions about the data (orders lists, ...)
     missing: dict = field(default_factory=dict)   # field -> rows of the panels missing it
+    scales: dict = field(default_factory=dict)    # axis -> scale record (figkit.scales)
 
 
 def _factorized(values: pd.Series, fld: str, spec: FigureSpec) -> tuple[np.ndarray, list]:
@@ -390,6 +391,8 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     data.present = present
     data.notes = notes
     data.missing = {f: n for f, n in missing.items() if n}
+    from .scales import apply_scales
+    apply_scales(spec, data)      # log/symlog axes: values in the space the axis draws
     return data
 
 
@@ -407,7 +410,8 @@ SAMPLE_ROWS = 200_000                   # fixed-seed sample for the Freedman-Dia
 
 
 def should_stream(spec: FigureSpec, limit_bytes: int | None = None) -> bool:
-    if spec.chart.name not in STREAM_CHARTS or spec.trend == "loess":
+    if spec.chart.name not in STREAM_CHARTS or spec.trend == "loess" or any(
+            spec.options.get(k, "linear") != "linear" for k in ("x_scale", "y_scale")):
         return False
     limit = STREAM_ABOVE_BYTES if limit_bytes is None else limit_bytes
     return spec.data_path.is_file() and spec.data_path.stat().st_size > limit

@@ -334,6 +334,17 @@ def _legend_handles(ctx: Context, spec: FigureSpec) -> list:
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
     from .charts import cue_dashes, cue_markers
+    if spec.chart.name == "lines":   # marker and dash pattern per group, as drawn
+        from .charts import _line_cues
+        markers, dashes = _line_cues(ctx)
+        return [Line2D([], [], color=hexc, linewidth=1.0, linestyle=dashes[level],
+                       marker=markers[level], markersize=3.5, markeredgecolor="white",
+                       markeredgewidth=0.3, label=shown(level)) for level, hexc in ctx.colours.items()]
+    if spec.chart.name == "means":   # a dot on its interval line, as drawn
+        markers = cue_markers(ctx)
+        return [Line2D([], [], color=hexc, linewidth=1.0, marker=markers.get(level, "o"),
+                       markersize=3.5, markeredgecolor="white", markeredgewidth=0.4,
+                       label=shown(level)) for level, hexc in ctx.colours.items()]
     if spec.chart.name == "scatter":
         markers = cue_markers(ctx)
         return [Line2D([], [], linestyle="none", marker=markers.get(level, "o"), markersize=3.5,
@@ -427,7 +438,8 @@ def _pin_ticks(fig) -> None:
 
 _PREPARING = {"histogram": "binning", "hexbins": "binning", "scatter": "measuring overlap",
               "density": "estimating densities", "violin": "estimating densities",
-              "box": "computing box statistics", "count-bars": "counting", "shares": "counting",
+              "box": "computing box statistics", "means": "computing means and intervals",
+              "lines": "computing means per x", "count-bars": "counting", "shares": "counting",
               "tiles": "counting"}
 
 
@@ -646,6 +658,10 @@ class _Assembly:
                     ax.grid(True, axis=grid_axis)
                 if spec.chart.x == "categorical":
                     ax.grid(False, axis="x")
+        from .scales import axis_scales, set_axis_ticks
+        for role, (name, _fld) in axis_scales(spec).items():
+            for ax in axes:     # ticks at powers of ten, labelled with the untransformed values
+                set_axis_ticks(ax, role, name, float(spec.options.get("threshold", 1.0)))
 
     def prepare_texts(self) -> None:
         """The texts whose room the layout measures: panel titles (the letter leads), the
@@ -1030,6 +1046,9 @@ class _Assembly:
 def _y_title(spec: FigureSpec) -> str:
     if spec.y and spec.chart.y is not None:
         return spec.axis_title(spec.y)
+    scaled = spec.options.get("x_scale", "linear")
+    if spec.chart.name == "density" and scaled != "linear":   # the curve is a density of t(x)
+        return "Density per log10 unit" if scaled == "log10" else "Density (symmetric log units)"
     return {"histogram": "Count", "density": "Density",
             "count-bars": spec.axis_title(spec.weight) if spec.weight else "Count",
             "shares": "Share" + (f" of {spec.axis_title(spec.weight).lower()}" if spec.weight else "")

@@ -19,14 +19,14 @@ from .errors import FigkitError
 
 BASE_MB = 400            # measured: small demo figures peak at 200-300 MB (interpreter, libraries)
 # Measured growth per row and column read (bytes): scatter/hexbins 45, density 52, histogram 89,
-# box 119; x1.5 headroom.  Counts charts, unmeasured, take the histogram's.
+# box 119; x1.5 headroom.  Counts charts, unmeasured, take the histogram's; means and lines, the box's.
 BYTES_PER_CELL = {"scatter": 72, "hexbins": 72, "density": 80, "histogram": 135,
-                  "count-bars": 135, "shares": 135, "tiles": 135, "box": 180, "violin": 180}
+                  "count-bars": 135, "shares": 135, "tiles": 135, "box": 180, "violin": 180, "means": 180, "lines": 180}
 LOESS_BYTES_PER_CELL = 180
 # Measured seconds per million rows beyond the start-up (same runs): scatter/hexbins 0.5,
 # histogram 0.7, box 1.3, LOESS 4.3; a cluster node may be slower and busier, so x10.
 SECONDS_PER_MILLION = {"scatter": 5, "hexbins": 5, "density": 10, "histogram": 7, "count-bars": 7,
-                       "shares": 7, "tiles": 7, "box": 13, "violin": 13}
+                       "shares": 7, "tiles": 7, "box": 13, "violin": 13, "means": 13, "lines": 13}
 LOESS_SECONDS_PER_MILLION = 45
 MIN_RUNTIME = 5          # minutes; start-up alone is a few seconds, queues round up anyway
 UNKNOWN_ROWS = 10_000_000   # a dataset a rule of the workflow has not made yet

@@ -60,6 +60,16 @@ def drawn_values(spec: FigureSpec, panels: list[dict], edges=None) -> list[dict]
         elif kind == "tiles":
             for e in p.get("tiles", []):
                 add(e["count"], measure, x=e["x"], y=e["y"])
+        elif kind == "lines":
+            for g in p.get("groups", []):
+                for pt in g.get("per_x", []):
+                    for m in ("n", "mean", "ci_low", "ci_high"):
+                        if pt[m] is not None:
+                            add(pt[m], m, x=pt["x"], group=g["group"])
+        elif kind == "means":
+            for g in p.get("groups", []):
+                for m in ("n", "mean", "sd", "ci_low", "ci_high"):
+                    add(g[m], m, x=g["x"], group=g["colour_group"])
         elif kind in ("box", "violin"):
             for g in p.get("groups", []):
                 for m in (_BOX_MEASURES if kind == "box" else _VIOLIN_MEASURES):
@@ -137,6 +147,15 @@ def panel_statistics(spec: FigureSpec, data: FigureData) -> list[dict]:
                 if not numeric_x:
                     g["y_mean"], g["x_mean"] = g["x_mean"], None
                 lines.append({"panel": p.label, "group": P.clean(level), **g})
+        if spec.chart.name == "means" and p.n:   # n and mean of every group a dot stands for
+            keys = [spec.x] + ([spec.colour] if spec.colour else [])
+            for key, part in p.frame.groupby(keys, sort=False, observed=True):
+                key = key if isinstance(key, tuple) else (key,)
+                y_part = part[spec.y].to_numpy(dtype=float)
+                lines.append({"panel": p.label, "group": " / ".join(shown(k) for k in key),
+                              "n": len(y_part), "n_dropped": None, "x_mean": None,
+                              "y_mean": float(y_part.mean()), "slope": None, "slope_ci_low": None,
+                              "slope_ci_high": None, "intercept": None, "r": None})
     return lines
 
 
@@ -235,6 +254,8 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
         panels = []
         for p, rec in zip(data.panels, drawn["panel_records"]):
             entry = {"label": p.label, "keys": p.keys, "n": p.n, "n_dropped": p.n_dropped}
+            if data.scales:
+                entry["scale_dropped"] = dict(getattr(p, "scale_dropped", {}) or {})
             if p.cell is not None:
                 entry["cell"] = list(p.cell)
             entry["stats"] = panel_stats.get(p.label)
@@ -253,12 +274,14 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
         # Greyscale is information, as in preflight ("not judged"): said with its remedy, and
         # not at all where the figure already carries a non-colour cue for its groups.
         cue = next((o for o in ("shapes", "dashes") if o in spec.chart.options), None)
-        if not (cue and spec.options.get(cue) == "yes"):
+        # lines always carry a marker and a dash pattern per group (charts._line_cues)
+        if not (cue and spec.options.get(cue) == "yes") and spec.chart.name != "lines":
             remedy = f"; add {cue}=yes under options for a cue that is not colour" if cue else ""
             cautions += [f"{c}: not judged, but a greyscale print would merge these groups{remedy}"
                          for c in collisions if "greyscale" in c]
         if spec.ranges != "common" and len(data.panels) > 1 and spec.chart.name in (
-                "count-bars", "histogram", "density", "shares", "scatter", "hexbins", "box", "violin"):
+                "count-bars", "histogram", "density", "shares", "scatter", "hexbins", "box", "violin",
+                "means", "lines"):
             cautions.append(f"ranges are '{spec.ranges}': panels have their own axis ranges, so "
                             "compare shapes within a panel, not heights across panels")
         if spec.trend != "none" and spec.colour and spec.colour in data.levels:
@@ -269,6 +292,29 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
             cautions.append("confidence band, slope intervals and the strata F-test treat every "
                             "row as independent; repeated readings of the same units (sites, "
                             "patients) make them look more precise than they are")
+        y_scale = (data.scales or {}).get("y", {}).get("scale")
+        if spec.trend == "line" and y_scale == "log10":
+            cautions.append("the straight line is fitted to log10(y): on the data's own scale it is "
+                            "an exponential fit, y = 10^(intercept + slope * x), and its slope is a "
+                            "change in log10 units (a factor of 10^slope per x unit)")
+        elif spec.trend == "line" and y_scale == "symlog":
+            cautions.append("the straight line is fitted to the symmetric log of y: on the data's "
+                            "own scale it is neither straight nor exponential")
+        if spec.chart.name == "lines" and any("x values repeat" in r.get("line_is", "")
+                                              for r in drawn["panel_records"]):
+            cautions.append("lines join the mean of y at each x (x values repeat); the band is each "
+                            "mean's 95% t interval, treating every row as independent")
+        if spec.chart.name == "means":
+            how = ("percentile bootstrap of the mean (Efron & Tibshirani 1993), "
+                   f"{spec.options.get('resamples', 4000)} resamples, seed {spec.options.get('seed', 20261202)}"
+                   if spec.options.get("interval") == "bootstrap" else "Student t interval of the mean")
+            cautions.append(f"95% intervals: {how}; they treat every row as independent, so "
+                            "repeated readings of the same units (sites, patients) make them look "
+                            "more precise than they are; they show the mean's uncertainty, not the "
+                            "spread of the data")
+            if (data.scales or {}).get("y", {}).get("scale") == "log10":
+                cautions.append("on a log10 y axis the dot is the mean of log10(y): a geometric "
+                                "mean, not the arithmetic mean of the values")
         if spec.trend == "loess":
             cautions.append("LOESS shows a local average; its shape depends on the span "
                             f"({spec.options.get('span', 0.75)}) and says nothing about uncertainty")
@@ -289,6 +335,7 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
             "rows_read": data.n_read, "rows_kept": data.n_kept, "rows_without_stratum": data.n_unassigned,
             "missing_values": dict(data.missing or {}),   # field -> rows of the panels missing it
             "strata_test": strata,
+            "scales": data.scales or None,   # axis -> scale, how drawn, values dropped
             "colours": {"used": drawn["colours"], "min_delta_e": sep.min_delta_e},
             "min_font_pt": sizes.min_font_pt,
             "min_line_pt": sizes.min_line_pt,

@@ -38,29 +38,50 @@ class ChartKind:
 
 
 _OVERPLOT = ("auto", "points", "translucent", "jitter", "bins")
+_SCALE = ("linear", "log10", "symlog")
+_THRESHOLD = {"threshold": (float, 1.0, "the symmetric log's linear threshold, above 0")}
+_XY_SCALES = {"x_scale": (str, "linear", _SCALE), "y_scale": (str, "linear", _SCALE), **_THRESHOLD}
+_X_SCALE = {"x_scale": (str, "linear", _SCALE), **_THRESHOLD}
+_Y_SCALE = {"y_scale": (str, "linear", _SCALE), **_THRESHOLD}
 CHARTS: dict[str, ChartKind] = {c.name: c for c in [
     ChartKind("scatter", NUMERIC, NUMERIC, colour=(CATEGORY, NUMERIC), trend=True,
               options={"points": (str, "auto", _OVERPLOT), "span": (float, 0.75, "0 < span <= 1"),
                        "degree": (int, 1, (1, 2)), "robust": (int, 0, "0-5 iterations"),
                        "shapes": (str, "no", ("yes", "no")),
-                       "centre": (float, None, "a value of the numeric colour field")},
+                       "centre": (float, None, "a value of the numeric colour field"), **_XY_SCALES},
               summary="points of y against x; overplotting handled from the measured density"),
     ChartKind("hexbins", NUMERIC, NUMERIC, trend=True,
               options={"cells": (int, 30, "hexagons across a panel, 5-200"),
                        "scale": (str, "log", ("log", "linear")), "span": (float, 0.75, "0 < span <= 1"),
-                       "degree": (int, 1, (1, 2)), "robust": (int, 0, "0-5 iterations")},
+                       "degree": (int, 1, (1, 2)), "robust": (int, 0, "0-5 iterations"),
+                       **_XY_SCALES},
               summary="counts in hexagonal bins (Carr et al. 1987), one colour scale for all panels"),
     ChartKind("box", CATEGORY, NUMERIC, options={"whisker": (float, 1.5, "IQR multiple > 0"),
-                                                 "quartiles": (str, "linear", ("linear", "hinges"))},
+                                                 "quartiles": (str, "linear", ("linear", "hinges")),
+                                                 **_Y_SCALE},
               summary="Tukey box plot of y per x group"),
-    ChartKind("violin", CATEGORY, NUMERIC, options={"bandwidth": (str, "scott", "scott, silverman or a number")},
+    ChartKind("lines", NUMERIC, NUMERIC, colour=(CATEGORY,),
+              options={"gap": (str, "auto", "auto, none or a step in x units above 0"),
+                       "band": (str, "yes", ("yes", "no")), **_XY_SCALES},
+              summary="y over an ordered x, one line per colour group (markers and dashes); "
+                      "per-x means with a 95% band where x repeats; gaps in x break the line"),
+    ChartKind("means", CATEGORY, NUMERIC, colour=(CATEGORY,),
+              options={"interval": (str, "t", ("t", "bootstrap")),
+                       "resamples": (int, 4000, "bootstrap resamples, 500-100000"),
+                       "seed": (int, 20261202, "a whole number (the bootstrap's fixed seed)"),
+                       "points": (str, "none", ("none", "auto", "points", "translucent")),
+                       "shapes": (str, "no", ("yes", "no")), **_Y_SCALE},
+              summary="mean of y per x group (side by side per colour group) with its 95% interval"),
+    ChartKind("violin", CATEGORY, NUMERIC, options={"bandwidth": (str, "scott", "scott, silverman or a number"),
+                                                    **_Y_SCALE},
               summary="mirrored kernel density of y per x group, quartiles marked"),
     ChartKind("density", NUMERIC, None, colour=(CATEGORY,),
               options={"bandwidth": (str, "scott", "scott, silverman or a number"),
-                       "dashes": (str, "no", ("yes", "no"))},
+                       "dashes": (str, "no", ("yes", "no")), **_X_SCALE},
               summary="Gaussian kernel density curves of x with translucent fills"),
     ChartKind("histogram", NUMERIC, None, options={"bins": (str, "fd", "fd, sturges or a count"),
-                                                   "edges": (str, "aligned", ("aligned", "exact"))},
+                                                   "edges": (str, "aligned", ("aligned", "exact")),
+                                                   **_X_SCALE},
               summary="histogram of x on bin edges shared by every panel"),
     ChartKind("count-bars", CATEGORY, None, colour=(CATEGORY,), weight=True,
               summary="bars of counts (or summed weight) per x value, side by side per colour group"),
@@ -176,12 +197,23 @@ def _parse_options(text: str | None, kind: ChartKind, err) -> dict:
 
 def _check_option_ranges(opts: dict, err) -> None:
     checks = {"span": lambda v: 0 < v <= 1, "robust": lambda v: 0 <= v <= 5,
-              "cells": lambda v: 5 <= v <= 200, "whisker": lambda v: v > 0}
+              "cells": lambda v: 5 <= v <= 200, "whisker": lambda v: v > 0,
+              "threshold": lambda v: v > 0, "resamples": lambda v: 500 <= v <= 100000}
     for key, ok in checks.items():
         if key in opts and not ok(opts[key]):
             limits = {"span": "0 < span <= 1", "robust": "0 to 5", "cells": "5 to 200",
-                      "whisker": "above 0"}[key]
+                      "whisker": "above 0", "threshold": "above 0",
+                      "resamples": "500 to 100000"}[key]
             raise err(f"option '{key}' out of range", field="options", value=opts[key], allowed=limits)
+    gap = opts.get("gap")
+    if gap is not None and gap not in ("auto", "none"):
+        try:
+            ok = 0 < float(gap) < float("inf")
+        except ValueError:
+            ok = False
+        if not ok:
+            raise err("option 'gap' not understood", field="options", value=gap,
+                      allowed="auto, none or a step in x units above 0")
     for key in ("bandwidth", "bins"):
         v = opts.get(key)
         if v is None or v in ("scott", "silverman", "fd", "sturges"):
@@ -286,6 +318,10 @@ def build_spec(row: SheetRow, config: Config, columns: list[str] | None = None) 
     if options.get("interval") == "wilson" and c.get("weight"):
         raise err("a Wilson interval needs counts of rows (independent units), not summed weights",
                   field="options", value="interval=wilson", allowed="leave 'weight' empty, or no interval")
+    if "threshold" in (c.get("options") or "") and "symlog" not in (
+            options.get("x_scale"), options.get("y_scale")):
+        raise err("option 'threshold' is the symmetric log's linear threshold", field="options",
+                  value=f"threshold={options['threshold']:g}", allowed="x_scale=symlog or y_scale=symlog")
     if options.get("centre") is not None and not c.get("colour"):
         raise err("option 'centre' needs a numeric colour field", field="options",
                   value=f"centre={options['centre']:g}", allowed="give 'colour' a numeric field")

@@ -740,6 +740,95 @@ def wilson_interval(k, n, level: float = 0.95):
     return low, high
 
 
+# ------------------------------------------------------------------------ group means
+@dataclass(frozen=True)
+class MeanInterval:
+    """A group's mean with a confidence interval (``low``/``high`` None when n < 2)."""
+    n: int
+    mean: float
+    sd: float | None
+    low: float | None
+    high: float | None
+    method: str          # "t" or "bootstrap"
+
+
+def mean_t_interval(values, level: float = 0.95) -> MeanInterval:
+    """Mean and Student-t confidence interval (Student 1908):
+
+        mean +/- t_{(1+level)/2, n-1} * s / sqrt(n),   s^2 = sum (x - mean)^2 / (n - 1).
+
+    Assumes independent observations and a sampling distribution of the mean close to normal.
+    """
+    level = _check_level(level)
+    v = _finite(values, "y")
+    n = int(v.size)
+    if n == 0:
+        raise FigkitError("a mean needs at least one value", field="y")
+    mean = float(v.mean())
+    if n < 2:
+        return MeanInterval(n, mean, None, None, None, "t")
+    sd = float(v.std(ddof=1))
+    half = _t_quantile(level, n - 1) * sd / math.sqrt(n)
+    return MeanInterval(n, mean, sd, mean - half, mean + half, "t")
+
+
+BOOTSTRAP_CHUNK = 256     # resamples drawn at once: memory stays at 256 * n values
+
+
+def mean_bootstrap_interval(values, resamples: int = 4000, seed: int = 20261202,
+                            level: float = 0.95) -> MeanInterval:
+    """Mean and percentile bootstrap interval (Efron & Tibshirani 1993, ch. 13): the
+    (1-level)/2 and (1+level)/2 quantiles (numpy's linear method) of the means of ``resamples``
+    resamples of size n drawn with replacement, from numpy's default generator seeded with
+    ``seed`` (the same interval on every rebuild)."""
+    level = _check_level(level)
+    v = _finite(values, "y")
+    n = int(v.size)
+    if n == 0:
+        raise FigkitError("a mean needs at least one value", field="y")
+    mean = float(v.mean())
+    if n < 2:
+        return MeanInterval(n, mean, None, None, None, "bootstrap")
+    rng = np.random.default_rng(seed)
+    means = np.empty(int(resamples))
+    for start in range(0, int(resamples), BOOTSTRAP_CHUNK):
+        k = min(BOOTSTRAP_CHUNK, int(resamples) - start)
+        means[start:start + k] = v[rng.integers(0, n, size=(k, n))].mean(axis=1)
+    low, high = np.percentile(means, [50.0 * (1 - level), 50.0 * (1 + level)])
+    return MeanInterval(n, mean, float(v.std(ddof=1)), float(low), float(high), "bootstrap")
+
+
+def per_x_means(x, y, level: float = 0.95):
+    """Mean of y at each distinct x with a Student t interval where x repeats:
+    ``(xs, n, mean, low, high)``; low/high are NaN where n < 2 (no interval from one value).
+    Per x: mean +/- t_{(1+level)/2, n-1} s / sqrt(n) (as :func:`mean_t_interval`)."""
+    level = _check_level(level)
+    x, y = _pair(x, y)
+    frame = pd.DataFrame({"x": x, "y": y}).groupby("x", sort=True)["y"]
+    agg = frame.agg(["count", "mean", "std"])
+    xs = agg.index.to_numpy(dtype=float)
+    n = agg["count"].to_numpy(dtype=np.int64)
+    mean = agg["mean"].to_numpy(dtype=float)
+    sd = agg["std"].to_numpy(dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tq = np.where(n > 1, _special.stdtrit(np.maximum(n - 1, 1), 0.5 + level / 2.0), np.nan)
+        half = tq * sd / np.sqrt(n)
+    return xs, n, mean, mean - half, mean + half
+
+
+def line_runs(xs, max_step: float | None) -> list[tuple[int, int]]:
+    """Index ranges [start, stop) of sorted ``xs`` that a line joins: a step between
+    neighbours larger than ``max_step`` (a missing period) starts a new run; None joins all."""
+    xs = np.asarray(xs, dtype=float)
+    if xs.size == 0:
+        return []
+    if max_step is None:
+        return [(0, int(xs.size))]
+    cuts = np.flatnonzero(np.diff(xs) > max_step * (1 + 1e-9)) + 1
+    bounds = [0, *cuts.tolist(), int(xs.size)]
+    return list(zip(bounds[:-1], bounds[1:]))
+
+
 def shares(counts) -> np.ndarray:
     """Proportions within each group: counts / row total (rows sum to 1).
 

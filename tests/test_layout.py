@@ -177,6 +177,8 @@ KINDS = {
     "hexbins": dict(x="v1", y="v2"),
     "box": dict(x="group", y="v1"),
     "violin": dict(x="group", y="v1"),
+    "means": dict(x="group", y="v1", colour="method", options="points=auto"),
+    "lines": dict(x="count", y="v1", colour="method"),
     "density": dict(x="v1", colour="method"),
     "histogram": dict(x="v1"),
     "count-bars": dict(x="group", colour="method", weight="count"),

@@ -1,0 +1,94 @@
+"""The lines chart: per-x means against pandas, intervals against scipy, gaps in x break lines.
+
+Data: constructed here (numpy, fixed seed): monthly readings at two sites, three rows per month,
+one site missing month 6.  References: pandas groupby (count, mean) for the per-x means,
+scipy.stats.t.interval for the per-x 95% intervals; the drawn segments are counted on the
+matplotlib figure the notebook API returns.
+"""
+from __future__ import annotations
+
+import json
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from figkit.errors import FigkitError
+from figkit.render import figure, load_project, render
+
+REPO = Path(__file__).resolve().parents[1]
+
+SHEET = "\t".join(["id", "dataset", "chart", "x", "y", "colour", "options"]) + "\n" + "\n".join(
+    "\t".join(r) for r in [
+        ["monthly", "obs", "lines", "month", "level", "site", ""],
+        ["monthly-bridged", "obs", "lines", "month", "level", "site", "gap=none"],
+        ["monthly-bad", "obs", "lines", "month", "level", "site", "gap=-2"],
+    ]) + "\n"
+
+
+@pytest.fixture(scope="module")
+def frame() -> pd.DataFrame:
+    rng = np.random.default_rng(5)
+    rows = []
+    for site, shift in (("upper", 0.0), ("lower", 3.0)):
+        for month in range(1, 13):
+            if site == "upper" and month == 6:
+                continue          # a missing period
+            for _ in range(3):
+                rows.append((site, month, shift + np.sin(month / 2) + rng.normal(0, 0.5)))
+    return pd.DataFrame(rows, columns=["site", "month", "level"])
+
+
+@pytest.fixture(scope="module")
+def project(tmp_path_factory, frame) -> Path:
+    root = tmp_path_factory.mktemp("lines")
+    (root / "config").mkdir()
+    (root / "data").mkdir()
+    shutil.copytree(REPO / "figkit" / "styles", root / "styles")
+    frame.to_csv(root / "data" / "obs.csv", index=False)
+    (root / "config" / "config.yaml").write_text("datasets:\n  obs: data/obs.csv\nformats: [png]\n")
+    (root / "config" / "figures.tsv").write_text(SHEET)
+    return root
+
+
+def test_per_x_means_match_pandas_and_scipy(project, frame):
+    from scipy import stats as sps
+    render(load_project(project), "monthly")
+    car = json.loads((project / "results" / "figures" / "monthly.json").read_text())
+    ref = frame.groupby(["site", "month"])["level"].agg(["count", "mean"])      # pandas
+    rec = car["panels"][0]
+    assert "mean of y at each x" in rec["line_is"]
+    seen = 0
+    for g in rec["groups"]:
+        for pt in g["per_x"]:
+            r = ref.loc[(g["group"], int(pt["x"]))]
+            assert pt["n"] == r["count"] and pt["mean"] == pytest.approx(r["mean"], rel=1e-9)
+            v = frame[(frame["site"] == g["group"]) & (frame["month"] == pt["x"])]["level"]
+            lo, hi = sps.t.interval(0.95, len(v) - 1, loc=v.mean(), scale=sps.sem(v))   # scipy
+            assert (pt["ci_low"], pt["ci_high"]) == pytest.approx((lo, hi), rel=1e-9)
+            seen += 1
+    assert seen == len(ref) == 23
+
+
+def test_a_gap_in_x_breaks_the_line(project):
+    render(load_project(project), "monthly")
+    car = json.loads((project / "results" / "figures" / "monthly.json").read_text())
+    by = {g["group"]: g for g in car["panels"][0]["groups"]}
+    assert by["upper"]["segments"] == 2 and by["upper"]["breaks"] == [7.0]
+    assert by["lower"]["segments"] == 1
+    fig = figure("monthly", load_project(project))
+    assert len(fig.axes[0].get_lines()) == 3           # segments drawn (matplotlib Line2D)
+    bridged = figure("monthly-bridged", load_project(project))
+    assert len(bridged.axes[0].get_lines()) == 2
+    render(load_project(project), "monthly-bridged")
+    car = json.loads((project / "results" / "figures" / "monthly-bridged.json").read_text())
+    assert any("gap=none" in c for c in car["cautions"])
+
+
+def test_bad_gap_is_one_line_error(project):
+    with pytest.raises(FigkitError) as exc:
+        render(load_project(project), "monthly-bad")
+    text = str(exc.value)
+    assert "\n" not in text and "monthly-bad" in text and "gap" in text and "-2" in text
