@@ -7,6 +7,7 @@ categorical, else numeric order for numbers, else natural sort ("S2" before "S10
 """
 from __future__ import annotations
 
+import gzip
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -17,7 +18,7 @@ import pandas as pd
 from .errors import FigkitError
 from .provenance import sha256_file  # noqa: F401  (also figkit.data.sha256_file, as before)
 from .spec import CATEGORY, NUMERIC, Banding, FigureSpec, check_columns
-from .text import shown
+from .text import data_encoding, locate_bad_byte, shown
 
 
 def _reader(path: Path):
@@ -25,6 +26,26 @@ def _reader(path: Path):
     if name.endswith(".parquet"):
         return "parquet"
     return "tsv" if name.endswith((".tsv", ".tsv.gz", ".txt")) else "csv"
+
+
+def _opener(path: Path):
+    return gzip.open if path.name.lower().endswith(".gz") else open
+
+
+def _text_options(path: Path, kind: str) -> dict:
+    """pandas' separator and encoding for a CSV/TSV file: UTF-8 with or without a byte-order
+    mark, UTF-16 with one (figkit.text.data_encoding checks the first bytes)."""
+    return {"sep": "\t" if kind == "tsv" else ",",
+            "encoding": data_encoding(path, _opener(path))}
+
+
+def _undecodable(path: Path) -> FigkitError:
+    """The one-line error for a data file pandas could not decode, with the byte offset."""
+    try:
+        enc = data_encoding(path, _opener(path))
+    except FigkitError as exc:
+        return exc
+    return locate_bad_byte(path, enc, _opener(path))
 
 
 def input_record(path: Path, root: Path) -> dict:
@@ -45,9 +66,11 @@ def read_columns(path: Path) -> list[str]:
         if kind == "parquet":
             import pyarrow.parquet as pq
             return list(pq.read_schema(path).names)
-        return list(pd.read_csv(path, nrows=0, sep="\t" if kind == "tsv" else ",").columns)
+        return list(pd.read_csv(path, nrows=0, **_text_options(path, kind)).columns)
     except ImportError:
         raise FigkitError("reading Parquet needs pyarrow: pip install pyarrow", value=str(path)) from None
+    except UnicodeDecodeError:
+        raise _undecodable(path) from None
     except (OSError, ValueError, UnicodeDecodeError) as exc:
         raise FigkitError(f"dataset file cannot be read ({type(exc).__name__})", value=str(path)) from None
 
@@ -57,9 +80,11 @@ def read_dataset(path: Path, columns: list[str]) -> pd.DataFrame:
     try:
         if kind == "parquet":   # positions in the file, whatever index pandas stored with it
             return pd.read_parquet(path, columns=columns).reset_index(drop=True)
-        return pd.read_csv(path, usecols=columns, sep="\t" if kind == "tsv" else ",", low_memory=False)
+        return pd.read_csv(path, usecols=columns, low_memory=False, **_text_options(path, kind))
     except ImportError:
         raise FigkitError("reading Parquet needs pyarrow: pip install pyarrow", value=str(path)) from None
+    except UnicodeDecodeError:
+        raise _undecodable(path) from None
     except (OSError, ValueError, UnicodeDecodeError, pd.errors.ParserError) as exc:
         first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise FigkitError(f"dataset file cannot be read: {first}", value=str(path)) from None
@@ -433,8 +458,10 @@ def iter_chunks(path: Path, columns: list[str], rows: int | None = None):
             yield chunk
         return
     try:
-        yield from pd.read_csv(path, usecols=columns, sep="\t" if kind == "tsv" else ",",
-                               chunksize=rows, low_memory=False)
+        yield from pd.read_csv(path, usecols=columns, chunksize=rows, low_memory=False,
+                               **_text_options(path, kind))
+    except UnicodeDecodeError:
+        raise _undecodable(path) from None
     except (OSError, ValueError, UnicodeDecodeError, pd.errors.ParserError) as exc:
         first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise FigkitError(f"dataset file cannot be read: {first}", value=str(path)) from None

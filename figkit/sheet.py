@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import copy
 import csv
+import io
 import json
 from dataclasses import dataclass, field
 from functools import lru_cache
@@ -17,10 +18,14 @@ import jsonschema
 import yaml
 
 from .errors import FigkitError, did_you_mean
-from .text import refuse_controls
+from .text import read_text, refuse_controls
 
 SCHEMA_DIR = Path(__file__).with_name("schemas")
 CONFIG_FILE = Path("config") / "config.yaml"
+# The longest cell a sheet may hold.  The longest cell a figure needs is a caption, and a
+# paragraph of caption fits in a few thousand characters; a longer cell is pasted data or a
+# runaway export, and would only make every check and message that quotes it slow.
+MAX_CELL_CHARS = 5_000
 
 
 @lru_cache(maxsize=None)
@@ -125,7 +130,7 @@ def load_config(root: Path | str = ".") -> Config:
     if not path.is_file():
         raise FigkitError(f"no project settings at {path}; run 'figkit init DIR' to start a project")
     try:
-        data = yaml.safe_load(path.read_text(encoding="utf-8")) or {}
+        data = yaml.safe_load(read_text(path, "settings file")) or {}
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         where = f" at line {mark.line + 1}" if mark else ""
@@ -149,6 +154,14 @@ class SheetRow:
 def check_row(number: int, cells: dict) -> SheetRow:
     """Validate one row against the sheet schema; defaults are filled in."""
     sch = schema("sheet")
+    for name, value in cells.items():
+        if len(value) > MAX_CELL_CHARS:
+            return SheetRow(number, {"id": cells["id"]} if "id" in cells and
+                            len(cells["id"]) <= MAX_CELL_CHARS else {}, FigkitError(
+                f"cell of {len(value):,} characters is longer than the limit",
+                row=number, figure=cells.get("id") if len(cells.get("id", "")) <= 200 else None,
+                field=name, value=value, allowed=f"at most {MAX_CELL_CHARS:,} characters"),
+                given=frozenset(cells))
     errors = sorted(jsonschema.Draft202012Validator(sch).iter_errors(cells), key=lambda e: list(e.path))
     full = _defaults(sch)
     full.update(cells)
@@ -173,8 +186,7 @@ def read_sheet(path: Path | str) -> list[SheetRow]:
     path = Path(path)
     if not path.is_file():
         raise FigkitError(f"figure sheet not found: {path}")
-    with path.open(newline="", encoding="utf-8") as fh:
-        lines = list(csv.reader(fh, delimiter="\t"))
+    lines = _sheet_records(path)
     if not lines:
         raise FigkitError(f"figure sheet {path} is empty; it needs a header row")
     header = [h.strip() for h in lines[0]]
@@ -210,6 +222,21 @@ def read_sheet(path: Path | str) -> list[SheetRow]:
         seen.setdefault(row.id, number)
         rows.append(row)
     return rows
+
+
+def _sheet_records(path: Path) -> list[list[str]]:
+    """The sheet's records (lists of cells); its bytes decoded as figkit.text.read_text says."""
+    text = read_text(path, "figure sheet")
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter="\t")
+    lines: list[list[str]] = []
+    try:
+        for values in reader:
+            lines.append(values)
+    except csv.Error as exc:   # e.g. a cell longer than the csv module's field limit
+        raise FigkitError(f"figure sheet {path.name} cannot be read as tab-separated text: {exc}",
+                          row=len(lines) + 1,
+                          allowed=f"cells of at most {MAX_CELL_CHARS:,} characters") from None
+    return lines
 
 
 def _refuse_other_separators(path: Path, header: list[str]) -> None:

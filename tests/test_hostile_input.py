@@ -1,0 +1,286 @@
+"""Hostile and broken input (issue 17): every case gives one line starting 'figkit: error:' (or a
+FigkitError, whose text is that line), never a traceback, a hang or a half-written file.  The
+cases are generated (hypothesis, seeded by its database-free default profile), not listed.
+
+Outside references, beside each check:
+* UTF-8: RFC 3629 (which byte sequences are UTF-8); Python's strict ``utf-8`` codec is the
+  reference decoder that says where the first bad byte lies;
+* byte-order marks: the Unicode Standard, section 23.8 "Specials" / Table 2-4 (EF BB BF for
+  UTF-8, FF FE and FE FF for UTF-16, FF FE 00 00 for UTF-32); UTF-16 itself: RFC 2781;
+* file signatures: PNG (ISO/IEC 15948, 89 50 4E 47 0D 0A 1A 0A), gzip (RFC 1952, 1F 8B),
+  PDF (ISO 32000-1, 7.5.2, "%PDF-"), zip (PKWARE APPNOTE, 50 4B 03 04) — from memory;
+* tab-separated sheets read as CSV with a tab delimiter (RFC 4180's quoting); Python's ``csv``
+  module is the reference reader;
+* Unicode digits and superscripts: general categories Nd and No of the Unicode Character
+  Database (``unicodedata``); float range: IEEE 754 binary64 (``sys.float_info.max``).
+"""
+from __future__ import annotations
+
+import csv
+import io
+import subprocess
+import sys
+import unicodedata
+from pathlib import Path
+
+import pytest
+from hypothesis import HealthCheck, given, settings, strategies as st
+
+from figkit.errors import FigkitError
+from figkit.expr import parse
+from figkit.sheet import load_config, read_sheet
+from figkit.text import decode_text
+
+HEADER = ["id", "dataset", "chart", "x", "caption"]
+# Printable text as a sheet cell may hold it: no controls (refused elsewhere), no surrogates
+# (not encodable), no tab/newline/quote (they are the sheet's own syntax, RFC 4180).
+CELL = st.text(st.characters(blacklist_categories=("Cc", "Cs"), blacklist_characters='"'),
+               min_size=1, max_size=30).map(str.strip).filter(bool)
+FAST = settings(max_examples=150, deadline=None,
+                suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+
+
+def sheet_text(captions: list[str]) -> str:
+    lines = ["\t".join(HEADER)]
+    lines += [f"f{i}\treadings\thistogram\twater_temp_c\t{c}" for i, c in enumerate(captions)]
+    return "\n".join(lines) + "\n"
+
+
+def expected_cells(text: str) -> list[dict]:
+    """The reference reading: Python's csv module on the text, tab as delimiter (RFC 4180)."""
+    rows = list(csv.reader(io.StringIO(text, newline=""), delimiter="\t"))
+    return [{h: v.strip() for h, v in zip(rows[0], r) if v.strip()} for r in rows[1:]]
+
+
+# --------------------------------------------------------------------------- 1. encodings
+
+ENCODINGS = {   # codec -> the bytes the file starts with (Unicode Standard, Table 2-4)
+    "utf-8": b"", "utf-8-sig": b"\xef\xbb\xbf", "utf-16-le": b"\xff\xfe", "utf-16-be": b"\xfe\xff",
+}
+
+
+@FAST
+@given(captions=st.lists(CELL, min_size=1, max_size=5), codec=st.sampled_from(sorted(ENCODINGS)))
+def test_sheet_in_utf8_with_or_without_bom_and_utf16_reads_the_same(tmp_path_factory, captions, codec):
+    text = sheet_text(captions)
+    path = tmp_path_factory.mktemp("enc") / "figures.tsv"
+    data = text.encode(codec)
+    path.write_bytes(data if codec.endswith("sig") else ENCODINGS[codec] + data)
+    rows = read_sheet(path)
+    assert [r.error for r in rows] == [None] * len(captions)
+    assert [{k: r.cells[k] for k in r.given} for r in rows] == expected_cells(text)
+
+
+def first_bad_utf8(data: bytes) -> int | None:
+    """The reference: where Python's strict UTF-8 decoder (RFC 3629) stops."""
+    try:
+        data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        return exc.start
+    return None
+
+
+@FAST
+@given(captions=st.lists(CELL, min_size=1, max_size=4), pos=st.integers(0, 10_000),
+       bad=st.binary(min_size=1, max_size=3).filter(lambda b: first_bad_utf8(b) is not None))
+def test_sheet_with_bytes_that_are_not_utf8_names_the_file_and_the_offset(tmp_path_factory,
+                                                                          captions, pos, bad):
+    good = sheet_text(captions).encode("utf-8")
+    # insert between characters (never inside one), so the reference decoder stops at the insert
+    cut = [i for i in range(len(good) + 1) if i == len(good) or good[i] & 0xC0 != 0x80]
+    at = cut[pos % len(cut)]
+    data = good[:at] + bad + good[at:]
+    if data.startswith((b"\xef\xbb\xbf", b"\xff\xfe", b"\xfe\xff")):
+        return   # a byte-order mark made by the insert is another case (below)
+    path = tmp_path_factory.mktemp("bad") / "figures.tsv"
+    path.write_bytes(data)
+    with pytest.raises(FigkitError) as info:
+        read_sheet(path)
+    msg = str(info.value)
+    assert "\n" not in msg and str(path) in msg
+    assert f"at byte offset {first_bad_utf8(data)}:" in msg          # Python's utf-8 codec
+    assert "UTF-8" in msg
+
+
+@FAST
+@given(text=st.text(st.characters(whitelist_categories=("Ll", "Lu")), min_size=3, max_size=40),
+       accented=st.sampled_from("éèàüöñçøÅÉ"))
+def test_latin1_settings_are_refused_naming_latin1(tmp_path_factory, text, accented):
+    root = tmp_path_factory.mktemp("latin")
+    (root / "config").mkdir()
+    yaml_text = f"sheet: config/figures.tsv\nresults: results\nfields:\n  x: {{label: {accented}{text}}}\n"
+    try:
+        data = yaml_text.encode("latin-1")
+    except UnicodeEncodeError:
+        return   # letters outside latin-1: not this case
+    (root / "config" / "config.yaml").write_bytes(data)
+    with pytest.raises(FigkitError) as info:
+        load_config(root)
+    msg = str(info.value)
+    offset = yaml_text.index(accented)    # ASCII before it: byte offset == character offset
+    assert f"byte offset {offset}:" in msg and "config.yaml" in msg
+    assert "latin-1" in msg and f"0x{ord(accented):02X}" in msg   # ISO 8859-1 = first 256 code points
+
+
+SIGNATURES = {   # first bytes of each format (see the module docstring), and the word we expect
+    b"\x89PNG\r\n\x1a\n": "PNG", b"\x1f\x8b\x08": "gzip", b"%PDF-1.7\n": "PDF",
+    b"PK\x03\x04": "zip", b"\xff\xfe\x00\x00": "UTF-32",
+}
+
+
+@FAST
+@given(sig=st.sampled_from(sorted(SIGNATURES)), body=st.binary(max_size=200))
+def test_binary_file_given_as_sheet_or_settings_names_its_kind(tmp_path_factory, sig, body):
+    path = tmp_path_factory.mktemp("bin") / "figures.tsv"
+    path.write_bytes(sig + body)
+    with pytest.raises(FigkitError) as info:
+        read_sheet(path)
+    msg = str(info.value)
+    assert SIGNATURES[sig] in msg and "byte offset 0" in msg and "\n" not in msg
+
+
+@FAST
+@given(text=st.text(st.characters(min_codepoint=0x20, max_codepoint=0x7e), min_size=2, max_size=50))
+def test_utf16_without_bom_is_refused_not_read_as_nul_bytes(text):
+    data = text.encode("utf-16-le")     # RFC 2781: no BOM; ASCII then alternates with NUL bytes
+    with pytest.raises(FigkitError) as info:
+        decode_text(data, "figures.tsv", "figure sheet")
+    assert "UTF-16" in str(info.value) and "byte offset 1:" in str(info.value)
+
+
+@FAST
+@given(text=st.text(st.characters(min_codepoint=0x20, max_codepoint=0x7e), min_size=1, max_size=50),
+       cut=st.integers(1, 1))
+def test_utf16_cut_short_is_refused(text, cut):
+    data = b"\xff\xfe" + text.encode("utf-16-le")
+    with pytest.raises(FigkitError) as info:
+        decode_text(data[:-cut], "figures.tsv", "figure sheet")
+    # RFC 2781: code units are two bytes; a trailing odd byte is an incomplete unit
+    assert f"byte offset {len(data) - 2}:" in str(info.value)
+
+
+COLUMNS = ["site", "water_temp_c"]
+
+
+@FAST
+@given(values=st.lists(st.tuples(CELL.filter(lambda s: not set(s) & set(",\"'\\")),
+                                  st.floats(-50, 50, allow_nan=False)), min_size=1, max_size=20),
+       codec=st.sampled_from(sorted(ENCODINGS)), gz=st.booleans())
+def test_data_file_encodings_read_the_same(tmp_path_factory, values, codec, gz):
+    import gzip
+    from figkit.data import read_columns, read_dataset
+    text = "site,water_temp_c\n" + "".join(f"{s},{v!r}\n" for s, v in values)
+    data = text.encode(codec)
+    data = data if codec.endswith("sig") else ENCODINGS[codec] + data
+    path = tmp_path_factory.mktemp("data") / ("d.csv.gz" if gz else "d.csv")
+    path.write_bytes(gzip.compress(data) if gz else data)
+    assert read_columns(path) == COLUMNS
+    df = read_dataset(path, COLUMNS)
+    assert [str(s) for s in df["site"]] == [s for s, _ in values] or \
+        df["site"].dtype != object   # pandas may read digit-only sites as numbers
+    assert list(df["water_temp_c"]) == [v for _, v in values]   # repr round-trips a float
+
+
+@FAST
+@given(rows=st.integers(1, 3000), bad=st.sampled_from([b"\xe9", b"\xff", b"\xc3(", b"\xed\xa0\x80"]),
+       gz=st.booleans())
+def test_data_file_with_a_bad_byte_far_in_names_the_offset(tmp_path_factory, rows, bad, gz):
+    import gzip
+    from figkit.data import read_dataset
+    good = b"site,water_temp_c\n" + b"".join(b"S%d,%d.5\n" % (i, i % 30) for i in range(rows))
+    at = good.rindex(b"S")            # the last row's site name
+    data = good[:at] + bad + good[at:]
+    path = tmp_path_factory.mktemp("data") / ("d.csv.gz" if gz else "d.csv")
+    path.write_bytes(gzip.compress(data) if gz else data)
+    with pytest.raises(FigkitError) as info:
+        read_dataset(path, COLUMNS)
+    assert f"byte offset {first_bad_utf8(data)}:" in str(info.value)   # Python's utf-8 codec
+
+
+def figkit_cli(root: Path, *args: str) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-m", "figkit", *args], cwd=root, capture_output=True,
+                          text=True, timeout=120)
+
+
+@pytest.fixture(scope="module")
+def project(tmp_path_factory) -> Path:
+    root = tmp_path_factory.mktemp("proj") / "p"
+    subprocess.run([sys.executable, "-m", "figkit", "init", str(root)], check=True, capture_output=True)
+    return root
+
+
+def one_line_error(proc: subprocess.CompletedProcess) -> str:
+    assert proc.returncode == 2, proc.stderr
+    assert "Traceback" not in proc.stderr
+    errors = [ln for ln in proc.stderr.splitlines() if ln.startswith("figkit: error:")]
+    assert len(errors) == 1, proc.stderr
+    return errors[0]
+
+
+@pytest.mark.parametrize("name", ["config/config.yaml", "config/figures.tsv", "data/readings.csv"])
+def test_cli_reads_utf16_and_refuses_latin1_in_one_line(project, name):
+    """Each of the three kinds of text file figkit reads, through `figkit lint` as a user runs it."""
+    path = project / name
+    original = path.read_bytes()
+    try:
+        path.write_bytes(b"\xff\xfe" + original.decode("utf-8").encode("utf-16-le"))  # RFC 2781
+        proc = figkit_cli(project, "lint")
+        assert proc.returncode == 0, proc.stderr
+        path.write_bytes(original.replace(b"\n", "\n# ré\n".encode("latin-1"), 1)
+                         if name.endswith(".yaml") else
+                         original.replace(b"water", "wat\xe9r".encode("latin-1"), 2))
+        line = one_line_error(proc := figkit_cli(project, "lint"))
+        assert name.split("/")[-1] in line and "byte offset" in line and "latin-1" in line
+        assert not (project / "results").exists()
+    finally:
+        path.write_bytes(original)
+
+
+# --------------------------------------------------------------------------- 3. filter text
+
+OTHER_DIGITS = [chr(c) for c in range(0x80, 0x3000)
+                if unicodedata.category(chr(c)) in ("Nd", "No")]   # Unicode Character Database
+
+
+@FAST
+@given(digit=st.sampled_from(OTHER_DIGITS), before=st.sampled_from(["x > ", "x == 1", "x in [1, ", "x >= 3"]))
+def test_filter_with_other_digits_or_superscripts_points_at_them(digit, before):
+    text = before + digit
+    with pytest.raises(FigkitError) as info:
+        parse(text)
+    assert f"at column {len(before) + 1} " in str(info.value)
+    assert "0-9" in str(info.value)
+
+
+@FAST
+@given(mantissa=st.integers(1, 9), exponent=st.integers(309, 100_000), sign=st.sampled_from(["", "-"]))
+def test_filter_numbers_beyond_float_range_are_refused_with_position(mantissa, exponent, sign):
+    src = f"{sign}{mantissa}e{exponent}"
+    assert abs(float(src)) == float("inf")      # IEEE 754 binary64 overflows (Python's float)
+    with pytest.raises(FigkitError) as info:
+        parse(f"x > {src}")
+    assert "out of range" in str(info.value) and "at column 5 " in str(info.value)
+
+
+@FAST
+@given(digits=st.integers(310, 9_000))
+def test_filter_long_integers_are_refused_not_a_traceback(digits):
+    with pytest.raises(FigkitError) as info:
+        parse("x == " + "9" * digits)
+    assert "at column 6 " in str(info.value) or "longer than" in str(info.value)
+
+
+TOKENS = ["x", "`a b`", "3", "-2.5", "'t'", "==", "!=", "<", ">=", "and", "or", "not", "in", "is",
+          "missing", "(", ")", "[", "]", ",", "=", "!", "&", "+", ".", "²", "1e999", "٣", "@", "'",
+          "`", "true"]
+
+
+@settings(max_examples=600, deadline=None)
+@given(st.lists(st.sampled_from(TOKENS), min_size=1, max_size=12))
+def test_any_token_soup_parses_or_gives_a_one_line_error_with_its_column(tokens):
+    text = " ".join(tokens)
+    try:
+        parse(text)
+    except FigkitError as exc:
+        msg = str(exc)
+        assert "\n" not in msg and "at column" in msg, msg
