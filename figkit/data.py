@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .errors import FigkitError
+from .errors import SPELLING_POOL_MAX, SPELLING_SEARCHES_MAX, FigkitError, closest
 from .provenance import sha256_file  # noqa: F401  (also figkit.data.sha256_file, as before)
 from .spec import CATEGORY, NUMERIC, Banding, FigureSpec, check_columns
 from .text import data_encoding, locate_bad_byte, shown
@@ -145,17 +145,22 @@ def order_notes(fld: str, order: list, values) -> list[str]:
     """Cautions for an ``orders:`` list that does not match a field's values in the data file: a
     listed value the file never holds is most likely a typo, and the value meant is then placed
     (and coloured) as an unlisted one, so a category would change colour between figures."""
-    import difflib
     have = {str(v) for v in values}
     listed = [str(v) for v in order]
     missing = [v for v in listed if v not in have]
     unlisted = sorted(have - set(listed), key=natural_key)
     out = []
     if missing:
-        close = {m: difflib.get_close_matches(m, unlisted or sorted(have), n=1, cutoff=0.6) for m in missing}
-        hints = [f"'{m}'" + (f" (did you mean '{close[m][0]}'?)" if close[m] else "") for m in missing]
-        out.append(f"orders: the list for '{fld}' names {', '.join(hints)}, which the data never "
-                   "hold; check the spelling in config.yaml")
+        # bounded: at most SPELLING_SEARCHES_MAX searches, none over a pool of identifiers
+        pool = unlisted or sorted(have)
+        hints = []
+        for m in missing[:SPELLING_SEARCHES_MAX]:
+            best = closest(m, pool)
+            hints.append(f"'{shown(m)}'" + (f" (did you mean '{shown(best)}'?)" if best else ""))
+        more = len(missing) - len(hints)
+        out.append(f"orders: the list for '{fld}' names {', '.join(hints)}"
+                   + (f" and {more:,} more" if more else "")
+                   + ", which the data never hold; check the spelling in config.yaml")
     if unlisted:
         more = f" and {len(unlisted) - 5} more" if len(unlisted) > 5 else ""
         out.append(f"orders: '{fld}' has values the list leaves out ({', '.join(map(repr, unlisted[:5]))}"
@@ -167,7 +172,6 @@ def filter_notes(spec: FigureSpec, values_of) -> list[str]:
     """Cautions for text the filter compares with a column that the column never holds (in the
     whole file): ``arm in ["placebo", "hgh dose"]`` would silently keep only placebo rows.
     ``values_of(column)`` gives the column's distinct values, or None for a numeric column."""
-    import difflib
     if spec.filter is None:
         return []
     out = []
@@ -180,9 +184,10 @@ def filter_notes(spec: FigureSpec, values_of) -> list[str]:
             continue
         # an identifier column can hold a million values: no spelling search there; sorted, so
         # ties of the search and the values shown are the same on every rebuild
-        small = len(have) <= 5000
+        small = len(have) <= SPELLING_POOL_MAX
         pool = sorted(have, key=natural_key) if small else sorted(have)
-        close = difflib.get_close_matches(text, pool, n=1, cutoff=0.6) if small else []
+        best = closest(text, pool) if small else None
+        close = [best] if best else []
         shown = ", ".join(pool[:8]) + (f" ... ({len(have) - 8} more)" if len(have) > 8 else "")
         out.append(f"filter: {text!r} is not a value of '{col}' in the data, so it matches no row"
                    + (f" (did you mean {close[0]!r}?)" if close else "") + f"; '{col}' holds: {shown}")

@@ -20,15 +20,17 @@ import csv
 import io
 import subprocess
 import sys
+import time
 import unicodedata
 from pathlib import Path
 
 import pytest
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-from figkit.errors import FigkitError
+from figkit.data import natural_key, order_notes
+from figkit.errors import SHOWN_VALUE_MAX, SPELLING_POOL_MAX, SPELLING_SEARCHES_MAX, FigkitError
 from figkit.expr import parse
-from figkit.sheet import load_config, read_sheet
+from figkit.sheet import MAX_CELL_CHARS, load_config, read_sheet
 from figkit.text import decode_text
 
 HEADER = ["id", "dataset", "chart", "x", "caption"]
@@ -284,3 +286,83 @@ def test_any_token_soup_parses_or_gives_a_one_line_error_with_its_column(tokens)
     except FigkitError as exc:
         msg = str(exc)
         assert "\n" not in msg and "at column" in msg, msg
+
+
+# --------------------------------------------------------------------------- 2. sizes
+
+SHEET_COLUMNS = ["id", "dataset", "chart", "x", "y", "strata", "filter", "options", "caption",
+                 "height_mm"]
+
+
+@settings(max_examples=40, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@given(column=st.sampled_from(SHEET_COLUMNS),
+       length=st.integers(MAX_CELL_CHARS + 1, 1_100_000),
+       char=st.sampled_from(["a", "(", " ", "9", "é", "語"]))
+def test_overlong_cells_give_one_short_line_naming_row_column_and_limit(tmp_path_factory, column,
+                                                                       length, char):
+    cells = dict(id="big", dataset="readings", chart="histogram", x="water_temp_c")
+    cells[column] = "x" + char * (length - 2) + "x"   # stripped cells keep their length
+    lines = ["\t".join(SHEET_COLUMNS), "\t".join(cells.get(c, "") for c in SHEET_COLUMNS)]
+    path = tmp_path_factory.mktemp("big") / "figures.tsv"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    start = time.monotonic()
+    try:
+        rows = read_sheet(path)
+        err = rows[0].error
+    except FigkitError as exc:      # beyond the csv module's own field limit: the whole sheet
+        err = exc
+    assert time.monotonic() - start < 5
+    msg = str(err)
+    assert "sheet row 2" in msg and f"{MAX_CELL_CHARS:,}" in msg and "\n" not in msg
+    assert len(msg) < 1000                         # the value is quoted cut short
+    if length <= 131_072 - 10:                     # Python's csv.field_size_limit() default
+        assert f"field '{column}'" in msg and f"{length:,} characters" in msg
+
+
+def test_a_caption_at_the_limit_is_accepted(tmp_path):
+    path = tmp_path / "figures.tsv"
+    caption = ("Dissolved oxygen by season. " * 400)[:MAX_CELL_CHARS].strip()
+    path.write_text(f"id\tdataset\tchart\tx\tcaption\nf\treadings\thistogram\tx\t{caption}\n",
+                    encoding="utf-8")
+    (row,) = read_sheet(path)
+    assert row.error is None and row.cells["caption"] == caption
+
+
+@settings(max_examples=30, deadline=None)
+@given(depth=st.integers(65, 100_000), closing=st.booleans())
+def test_deep_parentheses_are_refused_quickly(depth, closing):
+    text = "(" * depth + "x > 1" + (")" * depth if closing else "")
+    start = time.monotonic()
+    with pytest.raises(FigkitError) as info:
+        parse(text)
+    assert time.monotonic() - start < 2
+    assert "\n" not in str(info.value) and len(str(info.value)) < 1000
+
+
+@settings(max_examples=20, deadline=None)
+@given(n_values=st.integers(1, 30_000), n_missing=st.integers(1, 4_000), seed=st.integers(0, 99))
+def test_orders_spelling_search_is_bounded(n_values, n_missing, seed):
+    import difflib
+    values = [f"station-{(i * 7919 + seed) % 99991:05d}" for i in range(n_values)]
+    order = [f"statoin-{i:05d}" for i in range(n_missing)]
+    start = time.monotonic()
+    (note, *_) = order_notes("site", order, values)
+    assert time.monotonic() - start < 3
+    named = note.count("'statoin-")
+    assert named == min(n_missing, SPELLING_SEARCHES_MAX)
+    if n_missing > SPELLING_SEARCHES_MAX:
+        assert f"and {n_missing - SPELLING_SEARCHES_MAX:,} more" in note
+    if len(set(values)) <= SPELLING_POOL_MAX:    # the hint, as difflib itself finds it
+        ref = difflib.get_close_matches(order[0], sorted(set(values), key=natural_key), n=1)
+        assert (f"did you mean '{ref[0]}'" in note) == bool(ref)
+
+
+@FAST
+@given(value=st.text(min_size=SHOWN_VALUE_MAX + 1, max_size=50_000),
+       allowed=st.lists(st.text(max_size=20), max_size=3000))
+def test_error_lines_quote_long_values_cut_short(value, allowed):
+    msg = str(FigkitError("bad value", row=2, figure="f", field="caption", value=value,
+                          allowed=allowed))
+    assert "\n" not in msg and len(msg) < 25 * SHOWN_VALUE_MAX
+    assert f"({len(value):,} characters)" in msg
