@@ -30,7 +30,8 @@ from hypothesis import HealthCheck, given, settings, strategies as st
 from figkit.data import natural_key, order_notes
 from figkit.errors import SHOWN_VALUE_MAX, SPELLING_POOL_MAX, SPELLING_SEARCHES_MAX, FigkitError
 from figkit.expr import parse
-from figkit.sheet import MAX_CELL_CHARS, load_config, read_sheet
+from figkit.sheet import (MAX_CELL_CHARS, MAX_NAME_BYTES, MAX_RESULTS_PATH_CHARS, SYSTEM_FOLDERS,
+                          load_config, read_sheet, validate_config)
 from figkit.text import decode_text
 
 HEADER = ["id", "dataset", "chart", "x", "caption"]
@@ -366,3 +367,150 @@ def test_error_lines_quote_long_values_cut_short(value, allowed):
                           allowed=allowed))
     assert "\n" not in msg and len(msg) < 25 * SHOWN_VALUE_MAX
     assert f"({len(value):,} characters)" in msg
+
+
+# --------------------------------------------------------------------------- 4. settings and paths
+
+BASE_SETTINGS = {"datasets": {"readings": "data/readings.csv"}}
+
+
+def settings_error(root: Path, **changes) -> str:
+    with pytest.raises(FigkitError) as info:
+        validate_config(dict(BASE_SETTINGS, **changes), root)
+    msg = str(info.value)
+    assert "\n" not in msg and len(msg) < 1500
+    return msg
+
+
+NAME = st.text("abcxyz0189-_", min_size=1, max_size=12)
+
+
+@FAST
+@given(name=NAME, below=st.lists(NAME, max_size=3))
+def test_results_folder_that_is_or_lies_under_a_file_is_refused(tmp_path_factory, name, below):
+    root = tmp_path_factory.mktemp("res")
+    (root / name).write_text("not a folder\n", encoding="utf-8")
+    msg = settings_error(root, results="/".join([name, *below]))
+    assert "field 'results'" in msg and ("is a file" if not below else "which is a file") in msg
+    assert (root / name).is_file()
+
+
+@FAST
+@given(system=st.sampled_from(SYSTEM_FOLDERS), below=st.lists(NAME, max_size=3),
+       via=st.sampled_from(["", "/.", "/x/..", "//"]))
+def test_results_folder_under_a_system_folder_is_refused(tmp_path_factory, system, below, via):
+    root = tmp_path_factory.mktemp("sys")
+    target = "/".join([system + via, *below])
+    msg = settings_error(root, results=target)
+    assert f"system folder {system}" in msg                       # /proc: proc(5), from memory
+
+
+@FAST
+@given(char=st.sampled_from(["a", "é", "語", "😀"]), extra=st.integers(1, 40))
+def test_results_folder_names_longer_than_name_max_bytes_are_refused(tmp_path_factory, char, extra):
+    # NAME_MAX: 255 bytes per name on Linux file systems (limits.h, from memory), counted in
+    # UTF-8 bytes (RFC 3629: é takes 2, 語 3, 😀 4)
+    n = MAX_NAME_BYTES // len(char.encode("utf-8")) + extra
+    root = tmp_path_factory.mktemp("long")
+    msg = settings_error(root, results=char * n)
+    assert f"{n * len(char.encode('utf-8')):,} bytes" in msg
+    fits = char * (MAX_NAME_BYTES // len(char.encode("utf-8")))
+    validate_config(dict(BASE_SETTINGS, results=fits), root)        # at the limit: accepted
+
+
+@FAST
+@given(depth=st.integers(1, 3000))
+def test_deep_results_folders_are_refused_past_the_path_limit(tmp_path_factory, depth):
+    root = tmp_path_factory.mktemp("deep")
+    results = "/".join(["ab"] * depth)
+    full = len(str(root.resolve())) + 1 + len(results)
+    if full > MAX_RESULTS_PATH_CHARS:
+        assert f"{full:,} characters long" in settings_error(root, results=results)
+    else:
+        validate_config(dict(BASE_SETTINGS, results=results), root)
+    assert not (root / "ab").exists()                                # nothing made
+
+
+@FAST
+@given(pos=st.integers(0, 7), control=st.sampled_from(["\x00", "\x1b", "\x7f"]))
+def test_results_folder_with_a_nul_or_control_character_is_refused(tmp_path_factory, pos, control):
+    root = tmp_path_factory.mktemp("nul")
+    value = "results"[:pos] + control + "results"[pos:]
+    msg = settings_error(root, results=value)
+    assert "field 'results'" in msg and f"position {pos + 1}" in msg
+
+
+def test_no_datasets_is_refused(tmp_path):
+    msg = settings_error(tmp_path, datasets={})
+    assert "field 'datasets'" in msg
+
+
+@pytest.fixture()
+def style_dir(tmp_path) -> Path:
+    import shutil
+    from conftest import REPO
+    styles = tmp_path / "proj" / "styles"
+    shutil.copytree(REPO / "figkit" / "styles", styles)
+    return styles
+
+
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(which=st.sampled_from(["house.yaml", "house.mplstyle"]),
+       target=st.sampled_from(["system", "outside", "self", "loop2", "dotdot"]))
+def test_style_files_must_lie_inside_the_styles_folder(style_dir, which, target):
+    from figkit.style import load_style
+    import os
+    path = style_dir / which
+    saved = path.read_bytes()
+    outside = style_dir.parent.parent / f"outside-{which}"
+    outside.write_bytes(saved)
+    extra = []
+    try:
+        path.unlink()
+        if target == "system":
+            path.symlink_to("/etc/hostname")
+        elif target == "outside":
+            path.symlink_to(outside)
+        elif target == "self":
+            path.symlink_to(path.name)
+        elif target == "loop2":
+            other = style_dir / "other"
+            other.symlink_to(path.name)
+            path.symlink_to("other")
+            extra.append(other)
+        else:   # a name going up and out, no link at all (only the style sheet is named by YAML)
+            path.write_bytes(saved)
+            if which == "house.yaml":
+                return
+            (style_dir / "house.yaml").write_text((style_dir / "house.yaml").read_text(
+                encoding="utf-8").replace("sheet: house.mplstyle", f"sheet: ../../{outside.name}"),
+                encoding="utf-8")
+        with pytest.raises(FigkitError) as info:
+            load_style("house", style_dir)
+        msg = str(info.value)
+        assert ("outside the styles folder" in msg or "points to itself" in msg), msg
+    finally:
+        for p in [path, *extra]:
+            if p.is_symlink() or p.exists():
+                p.unlink()
+        path.write_bytes(saved)
+        house = style_dir / "house.yaml"
+        house.write_text(house.read_text(encoding="utf-8").replace(
+            f"sheet: ../../{outside.name}", "sheet: house.mplstyle"), encoding="utf-8")
+        os.remove(outside)
+
+
+@pytest.mark.parametrize("results", ["afile", "afile/deeper", "/proc/self/figs", "/etc"])
+def test_cli_render_refuses_bad_results_folders_in_one_line(project, results):
+    config = project / "config" / "config.yaml"
+    original = config.read_text(encoding="utf-8")
+    (project / "afile").write_text("x\n", encoding="utf-8")
+    try:
+        config.write_text(original.replace("results: results", f"results: {results}"),
+                          encoding="utf-8")
+        line = one_line_error(figkit_cli(project, "render", "--id", "oxygen-by-land-use"))
+        assert "field 'results'" in line
+        assert not Path("/etc/figures").exists()
+    finally:
+        config.write_text(original, encoding="utf-8")
+        (project / "afile").unlink()
