@@ -141,6 +141,28 @@ class Panel:
         return self.tally.n if self.tally is not None else len(self.frame)
 
 
+# Limits of what one figure can show legibly; past them a build would spend minutes laying out
+# text nobody can read.  Categories per axis: at 176 mm (a full page width) 300 bars leave about
+# half a millimetre each, well under a 5 pt tick label.
+MAX_CATEGORIES_PER_AXIS = 300
+# Panels per figure: a 15 x 15 grid of small multiples at full page width leaves panels of about
+# 10 mm, below any house style's panel minimum; more is a strata field with identifiers in it.
+MAX_PANELS = 225
+# A text column whose values are mostly numbers (or dates) with more than this many distinct
+# ones is a numeric (or date) column with stray text in it, not categories (the same number
+# as the rule for a numeric column used as categories).
+CONTINUOUS_DISTINCT = 50
+
+
+def _row_where(spec: FigureSpec, first_pos: int | None) -> str:
+    """', first at row R of the file (header = row 1)' for a row position, as in _text_error."""
+    if first_pos is None:
+        return ""
+    if _reader(spec.data_path) == "parquet":
+        return f", first in data row {first_pos + 1}"
+    return f", first at row {first_pos + 2} of the file (header = row 1)"
+
+
 def order_notes(fld: str, order: list, values) -> list[str]:
     """Cautions for an ``orders:`` list that does not match a field's values in the data file: a
     listed value the file never holds is most likely a typo, and the value meant is then placed
@@ -285,10 +307,59 @@ def _check_kind(frame: pd.DataFrame, field: str, need: str, spec: FigureSpec, ro
             raise _stored_as_text(spec, field, role, s.dtype)
     if need == CATEGORY and pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
         distinct = s.nunique()
-        if distinct > 50:
+        if distinct > CONTINUOUS_DISTINCT:
             raise spec.err(f"{role} field '{field}' is continuous ({distinct} distinct values) but chart "
                            f"'{spec.chart.name}' needs categories", field=role, value=field,
                            allowed="a categorical column, or a band set (bands:) derived from it")
+    if need == CATEGORY:
+        return _check_categories(s, field, spec, role)
+    return None
+
+
+def _check_categories(s: pd.Series, field: str, spec: FigureSpec, role: str) -> str | None:
+    """A categorical axis: at most MAX_CATEGORIES_PER_AXIS values; a text column that holds
+    numbers or dates as text with many distinct values is refused (it is a measurement, not
+    categories); a few numbers mixed with text give a caution (returned)."""
+    uniques = pd.unique(s.dropna())
+    if len(uniques) > MAX_CATEGORIES_PER_AXIS:
+        raise spec.err(f"{role} field '{field}' has {len(uniques):,} distinct values, more than "
+                       f"one axis can show", field=role, value=field,
+                       allowed=f"at most {MAX_CATEGORIES_PER_AXIS} categories per axis (a filter, "
+                       "or a band set derived from the field)")
+    if not (s.dtype == object or pd.api.types.is_string_dtype(s)) or not len(uniques):
+        return None
+    text = pd.Series(uniques, dtype=object).map(lambda v: v if isinstance(v, str) else None)
+    numbers = pd.to_numeric(text, errors="coerce")
+    is_number = numbers.notna().to_numpy()
+    n_distinct = int(is_number.sum())
+    dates = None
+    if not is_number.any():
+        dates = pd.to_datetime(text, errors="coerce", format="ISO8601")
+        is_number = dates.notna().to_numpy()
+        n_distinct = int(is_number.sum())
+    if not is_number.any():
+        return None
+    what = "numbers" if dates is None else "dates"
+    word = {True: set(uniques[is_number]), False: set(uniques[~is_number])}
+    row_is_number = s.isin(word[True])
+    n_rows = int(row_is_number.sum())
+    other = s.notna() & ~row_is_number
+    n_other = int(other.sum())
+    first = _first_pos(s[other]) if n_other else None
+    sample = ", ".join(repr(v) for v in list(pd.unique(s[other]))[:3])
+    if n_distinct > CONTINUOUS_DISTINCT:
+        detail = (f"and text in {n_other} rows such as {sample}{_row_where(spec, first)}"
+                  if n_other else "")
+        raise spec.err(f"{role} field '{field}' holds {what} stored as text in {n_rows} rows "
+                       f"({n_distinct} distinct) {detail}, but chart '{spec.chart.name}' needs "
+                       "categories", field=role, value=field,
+                       allowed=f"a categorical column; or store the {what} as {what} and derive "
+                       "a band set (bands:) from them")
+    if n_other and dates is None:
+        return (f"{role} field '{field}' mixes numbers ({n_rows} rows) with text ({n_other} rows "
+                f"such as {sample}{_row_where(spec, first)}); each is drawn as a category of its "
+                "own, in natural order")
+    return None
 
 
 def split_rows(frame: pd.DataFrame, codes: np.ndarray, k: int, used: list[str]):
@@ -365,12 +436,20 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     for role, need in (("x", spec.chart.x), ("y", spec.chart.y)):
         fld = getattr(spec, role)
         if fld and need:
-            _check_kind(frame, fld, need, spec, role)
+            note = _check_kind(frame, fld, need, spec, role)
+            if note:
+                notes.append(note)
     if spec.weight:
         _check_kind(frame, spec.weight, NUMERIC, spec, "weight")
         if (frame[spec.weight].dropna() < 0).any():
             raise spec.err("weight field has negative values", field="weight", value=spec.weight,
                            allowed="counts or other non-negative numbers")
+        infinite = frame[spec.weight][np.isinf(frame[spec.weight].to_numpy(dtype=float))]
+        if len(infinite):   # a sum with one inf in it is inf: every bar or tile would be lost
+            raise spec.err(f"weight field '{spec.weight}' holds infinite values in "
+                           f"{len(infinite)} rows{_row_where(spec, _first_pos(infinite))}",
+                           field="weight", value=spec.weight,
+                           allowed="finite non-negative numbers (empty cells for missing)")
 
     # Axis groups and legend entries: only the values the figure keeps (a value the filter
     # removed would otherwise read as a true zero).
@@ -407,6 +486,7 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
         cells = [(i, j) for i in range(len(rlev)) for j in range(len(clev))]
         grid_levels = (rlev, clev)
     k = len(keys_list)
+    _check_panel_count(spec, k)
     ordered, bounds, dropped = split_rows(frame, codes, k, used)
     # Which fields the dropped rows miss, with a count each (only when some are dropped).
     missing = {f: int(frame[f].isna().sum()) for f in used} if dropped.any() else {}
@@ -420,7 +500,37 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     data.present = present
     data.notes = notes
     data.missing = {f: n for f, n in missing.items() if n}
+    data.notes += _empty_panel_notes(spec, data)
     return data
+
+
+def _check_panel_count(spec: FigureSpec, k: int) -> None:
+    if k > MAX_PANELS:
+        raise spec.err(f"strata make {k:,} panels, more than one figure can show", field="strata",
+                       value=" by ".join(spec.strata), allowed=f"at most {MAX_PANELS} panels (a "
+                       "filter, or a band set derived from the field)")
+
+
+def _empty_panel_notes(spec: FigureSpec, data: "FigureData") -> list[str]:
+    """A figure none of whose panels has a complete row is refused (it would show nothing); a
+    panel left empty only because its rows miss values gets a caution."""
+    if not data.panels or any(p.n for p in data.panels):
+        empty = [p for p in data.panels if not p.n and p.n_dropped]
+        if not empty:
+            return []
+        names = ", ".join(repr(p.label) for p in empty[:5]) + (
+            f" and {len(empty) - 5} more" if len(empty) > 5 else "")
+        return [f"{len(empty)} of {len(data.panels)} panels draw no data ({names}): every row "
+                f"there misses a value of {', '.join(repr(f) for f in data.missing) or 'a field'}"]
+    worst = max(data.missing.items(), key=lambda kv: kv[1]) if data.missing else None
+    raise spec.err("no panel has a row with a value in every field it draws, so the figure "
+                   "would show nothing" + (f": '{worst[0]}' is missing in {worst[1]} of "
+                                           f"{data.n_kept} rows" if worst else ""),
+                   field=None if worst is None else next(
+                       (r for r in ("x", "y", "colour", "weight") if getattr(spec, r) == worst[0]),
+                       None),
+                   value=None if worst is None else worst[0],
+                   allowed="rows with values in x, y and the other fields the chart uses")
 
 
 # ---------------------------------------------------------------------------- streaming path
@@ -588,6 +698,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
         rl, cl = order(strata[0]), order(strata[1])
         keys_list = [{strata[0]: r, strata[1]: c} for r in rl for c in cl]
         cells = [(i, j) for i in range(len(rl)) for j in range(len(cl))]
+    _check_panel_count(spec, len(keys_list))
     grid = edges = bin_info = None
     if spec.chart.name == "hexbins":
         from .aggregate import padded_range
@@ -645,6 +756,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     data.missing = {f: n for f, n in missing.items() if n}
     data.notes = [n for f in ordered for n in order_notes(f, spec.orders[f], sorted(whole[f], key=natural_key))]
     data.notes += filter_notes(spec, lambda col: None if col in numeric else whole.get(col))
+    data.notes += _empty_panel_notes(spec, data)
     data.streamed = {"chunk_rows": CHUNK_ROWS, "hex_grid": None if grid is None else
                      [grid.xmin, grid.xmax, grid.ymin, grid.ymax, grid.nx],
                      "bin_edges": None if edges is None else edges.tolist(), "bin_info": bin_info,

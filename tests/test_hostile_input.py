@@ -514,3 +514,137 @@ def test_cli_render_refuses_bad_results_folders_in_one_line(project, results):
     finally:
         config.write_text(original, encoding="utf-8")
         (project / "afile").unlink()
+
+
+# --------------------------------------------------------------------------- 5. bad data accepted
+
+def data_project(root: Path, frame, sheet_row: dict) -> "object":
+    """A one-figure project over ``frame`` (written as CSV); returns the row's FigureSpec."""
+    import shutil
+    from conftest import REPO
+    from figkit.sheet import load_project
+    (root / "data").mkdir(parents=True, exist_ok=True)
+    if not (root / "styles").exists():
+        shutil.copytree(REPO / "figkit" / "styles", root / "styles")
+    frame.to_csv(root / "data" / "t.csv", index=False)
+    cols = list(sheet_row)
+    (root / "figures.tsv").write_text("\t".join(cols) + "\n" + "\t".join(sheet_row[c] for c in cols)
+                                      + "\n", encoding="utf-8")
+    project = load_project(root, settings={"datasets": {"t": "data/t.csv"}, "sheet": "figures.tsv"})
+    return project.spec(sheet_row["id"])
+
+
+WORD = st.text("abcdefghijklmnopqrstuvwxyz", min_size=2, max_size=8)
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(n_numbers=st.integers(1, 120), words=st.lists(WORD, min_size=1, max_size=4, unique=True),
+       n_rows=st.integers(130, 400), seed=st.integers(0, 2**16), chart=st.sampled_from(["box", "violin"]))
+def test_numbers_mixed_with_text_in_a_category_axis(tmp_path_factory, n_numbers, words, n_rows,
+                                                    seed, chart):
+    import random
+    import pandas as pd
+    from figkit.data import CONTINUOUS_DISTINCT, load_figure_data
+    rng = random.Random(seed)
+    numbers = [str(10 * i + 5) for i in range(n_numbers)]      # decimal numerals, from memory
+    xs = numbers + words + [rng.choice(numbers + words) for _ in range(n_rows - n_numbers - len(words))]
+    rng.shuffle(xs)
+    frame = pd.DataFrame({"g": xs, "v": [rng.random() for _ in xs]})
+    spec = data_project(tmp_path_factory.mktemp("mix"), frame,
+                        dict(id="m", dataset="t", chart=chart, x="g", y="v"))
+    text_rows = [i for i, x in enumerate(xs) if x in words]      # the reference count, by hand
+    where = f"first at row {text_rows[0] + 2} of the file"      # header = row 1 (RFC 4180 header)
+    if n_numbers > CONTINUOUS_DISTINCT:
+        with pytest.raises(FigkitError) as info:
+            load_figure_data(spec)
+        msg = str(info.value)
+        assert "field 'x'" in msg and f"text in {len(text_rows)} rows" in msg and where in msg
+        assert f"in {len(xs) - len(text_rows)} rows ({n_numbers} distinct)" in msg
+    else:
+        notes = [n for n in load_figure_data(spec).notes if "mixes numbers" in n]
+        assert len(notes) == 1 and f"with text ({len(text_rows)} rows" in notes[0] and where in notes[0]
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(n_days=st.integers(2, 150), start=st.dates(), seed=st.integers(0, 2**16))
+def test_dates_as_text_in_a_category_axis(tmp_path_factory, n_days, start, seed):
+    import datetime
+    import random
+    import pandas as pd
+    from figkit.data import CONTINUOUS_DISTINCT, load_figure_data
+    if start.year > 9000:
+        start = start.replace(year=2000)
+    rng = random.Random(seed)
+    days = [(start + datetime.timedelta(days=i)).isoformat() for i in range(n_days)]   # ISO 8601
+    xs = days + [rng.choice(days) for _ in range(60)]
+    frame = pd.DataFrame({"d": xs, "v": [rng.random() for _ in xs]})
+    spec = data_project(tmp_path_factory.mktemp("dates"), frame,
+                        dict(id="d", dataset="t", chart="box", x="d", y="v"))
+    if n_days > CONTINUOUS_DISTINCT:
+        with pytest.raises(FigkitError) as info:
+            load_figure_data(spec)
+        assert "dates stored as text" in str(info.value) and f"({n_days} distinct)" in str(info.value)
+    else:
+        load_figure_data(spec)   # a few sampling dates are categories
+
+
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(n_rows=st.integers(5, 300), where=st.lists(st.integers(0, 299), min_size=1, max_size=5),
+       sign=st.sampled_from(["inf", "Infinity", "1e999"]), chart=st.sampled_from(["count-bars", "tiles"]))
+def test_infinite_weights_are_refused_with_count_and_first_row(tmp_path_factory, n_rows, where,
+                                                                sign, chart):
+    import pandas as pd
+    from figkit.data import load_figure_data
+    rows = sorted({w % n_rows for w in where})
+    weights = ["3"] * n_rows
+    for r in rows:
+        weights[r] = sign      # each reads as IEEE 754 +infinity (pandas' C parser, Python float)
+    frame = pd.DataFrame({"a": ["p", "q"] * (n_rows // 2) + ["p"] * (n_rows % 2),
+                          "b": ["r"] * n_rows, "w": weights})
+    row = dict(id="w", dataset="t", chart=chart, x="a", weight="w")
+    if chart == "tiles":
+        row["y"] = "b"
+    spec = data_project(tmp_path_factory.mktemp("inf"), frame, row)
+    with pytest.raises(FigkitError) as info:
+        load_figure_data(spec)
+    msg = str(info.value)
+    assert "field 'weight'" in msg and f"infinite values in {len(rows)} rows" in msg
+    assert f"first at row {rows[0] + 2} of the file" in msg
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(n_panels=st.integers(2, 6), empty=st.sets(st.integers(0, 5), min_size=1), seed=st.integers(0, 99))
+def test_panels_that_draw_no_data_give_a_caution_or_an_error(tmp_path_factory, n_panels, empty, seed):
+    import pandas as pd
+    from figkit.data import load_figure_data
+    empty = {e % n_panels for e in empty}
+    panels = [f"P{i}" for i in range(n_panels)]
+    g = [p for p in panels for _ in range(4)]
+    y = [None if int(p[1:]) in empty else float(i + seed) for i, p in enumerate(g)]
+    frame = pd.DataFrame({"s": g, "x": [float(i) for i in range(len(g))], "y": y})
+    spec = data_project(tmp_path_factory.mktemp("empty"), frame,
+                        dict(id="e", dataset="t", chart="scatter", x="x", y="y", strata="s"))
+    if len(empty) == n_panels:
+        with pytest.raises(FigkitError) as info:
+            load_figure_data(spec)
+        assert "would show nothing" in str(info.value) and f"missing in {len(g)} of {len(g)} rows" \
+            in str(info.value) and "field 'y'" in str(info.value)
+    else:
+        notes = [n for n in load_figure_data(spec).notes if "draw no data" in n]
+        assert len(notes) == 1 and notes[0].startswith(f"{len(empty)} of {n_panels} panels")
+        assert all(f"'P{e}'" in notes[0] for e in sorted(empty)[:5])
+
+
+@settings(max_examples=10, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(n=st.integers(301, 6000))
+def test_too_many_categories_on_an_axis_are_refused_quickly(tmp_path_factory, n):
+    import pandas as pd
+    from figkit.data import MAX_CATEGORIES_PER_AXIS, load_figure_data
+    frame = pd.DataFrame({"a": [f"c{i}" for i in range(n)], "w": [1] * n})
+    spec = data_project(tmp_path_factory.mktemp("cats"), frame,
+                        dict(id="c", dataset="t", chart="count-bars", x="a", weight="w"))
+    start = time.monotonic()
+    with pytest.raises(FigkitError) as info:
+        load_figure_data(spec)
+    assert time.monotonic() - start < 5
+    assert f"{n:,} distinct values" in str(info.value) and str(MAX_CATEGORIES_PER_AXIS) in str(info.value)
