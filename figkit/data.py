@@ -17,7 +17,8 @@ import pandas as pd
 
 from .errors import SPELLING_POOL_MAX, SPELLING_SEARCHES_MAX, FigkitError, closest
 from .provenance import sha256_file  # noqa: F401  (also figkit.data.sha256_file, as before)
-from .spec import CATEGORY, NUMERIC, Banding, FigureSpec, check_columns
+from .spec import (CATEGORY, MAX_LABEL_CHARS, NUMERIC, Banding, FigureSpec, check_columns,
+                   short_label)
 from .text import data_encoding, locate_bad_byte, shown
 
 
@@ -475,14 +476,14 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     elif len(spec.strata) == 1:
         fld = spec.strata[0]
         codes, levels_ = _factorized(frame[fld], fld, spec)
-        keys_list, labels, cells = [{fld: v} for v in levels_], [shown(v) for v in levels_], None
+        keys_list, labels, cells = [{fld: v} for v in levels_], [short_label(shown(v)) for v in levels_], None
     else:
         rf, cf = spec.strata
         rcodes, rlev = _factorized(frame[rf], rf, spec)
         ccodes, clev = _factorized(frame[cf], cf, spec)
         codes = rcodes * len(clev) + ccodes
         keys_list = [{rf: rv, cf: cv} for rv in rlev for cv in clev]
-        labels = [f"{shown(rv)} / {shown(cv)}" for rv in rlev for cv in clev]
+        labels = [short_label(f"{shown(rv)} / {shown(cv)}") for rv in rlev for cv in clev]
         cells = [(i, j) for i in range(len(rlev)) for j in range(len(clev))]
         grid_levels = (rlev, clev)
     k = len(keys_list)
@@ -500,8 +501,29 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     data.present = present
     data.notes = notes
     data.missing = {f: n for f, n in missing.items() if n}
-    data.notes += _empty_panel_notes(spec, data)
+    data.notes += _empty_panel_notes(spec, data) + _long_label_notes(spec, data)
     return data
+
+
+def _long_label_notes(spec: FigureSpec, data: "FigureData") -> list[str]:
+    """A caution for each axis title or panel title cut to MAX_LABEL_CHARS (spec.short_label)."""
+    out = []
+    fields = dict.fromkeys(f for f in (spec.x, spec.y, spec.colour, spec.weight, *spec.strata) if f)
+    for f in fields:
+        label, unit = spec.labels.get(f, (f, ""))
+        if label.endswith("\u2026") and len(label) == MAX_LABEL_CHARS or \
+                unit.endswith("\u2026") and len(unit) == MAX_LABEL_CHARS:
+            out.append(f"the label of field '{f}' is longer than {MAX_LABEL_CHARS} characters and "
+                       "is shown cut short with an ellipsis; shorten it under fields: in config.yaml")
+        elif len(f) > MAX_LABEL_CHARS and f not in spec.labels:
+            out.append(f"field name '{short_label(f)}' is longer than {MAX_LABEL_CHARS} characters; "
+                       "give it a short label under fields: in config.yaml")
+    cut = [p.label for p in data.panels if p.label.endswith("\u2026") and
+           len(p.label) == MAX_LABEL_CHARS]
+    if cut:
+        out.append(f"{len(cut)} panel titles are longer than {MAX_LABEL_CHARS} characters and are "
+                   "shown cut short with an ellipsis")
+    return out
 
 
 def _check_panel_count(spec: FigureSpec, k: int) -> None:
@@ -746,7 +768,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     panels = []
     for i, keys in enumerate(keys_list):
         tally = tallies[tuple(keys.get(f) for f in strata)]
-        label = " / ".join(shown(v) for v in keys.values())
+        label = short_label(" / ".join(shown(v) for v in keys.values()))
         frame = pd.DataFrame({f: pd.Series(dtype=float) for f in used})
         panels.append(Panel(label, {k: _json_value(v) for k, v in keys.items()}, frame,
                             tally.n_dropped, cells[i] if cells else None, tally=tally))
@@ -756,7 +778,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     data.missing = {f: n for f, n in missing.items() if n}
     data.notes = [n for f in ordered for n in order_notes(f, spec.orders[f], sorted(whole[f], key=natural_key))]
     data.notes += filter_notes(spec, lambda col: None if col in numeric else whole.get(col))
-    data.notes += _empty_panel_notes(spec, data)
+    data.notes += _empty_panel_notes(spec, data) + _long_label_notes(spec, data)
     data.streamed = {"chunk_rows": CHUNK_ROWS, "hex_grid": None if grid is None else
                      [grid.xmin, grid.xmax, grid.ymin, grid.ymax, grid.nx],
                      "bin_edges": None if edges is None else edges.tolist(), "bin_info": bin_info,

@@ -648,3 +648,51 @@ def test_too_many_categories_on_an_axis_are_refused_quickly(tmp_path_factory, n)
         load_figure_data(spec)
     assert time.monotonic() - start < 5
     assert f"{n:,} distinct values" in str(info.value) and str(MAX_CATEGORIES_PER_AXIS) in str(info.value)
+
+
+@settings(max_examples=4, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(value_len=st.integers(81, 10_000), label_len=st.integers(81, 10_000), char=st.sampled_from("aé語"))
+def test_long_labels_are_cut_with_an_ellipsis_and_cautioned(tmp_path_factory, value_len, label_len, char):
+    import matplotlib
+    matplotlib.use("Agg")
+    import pandas as pd
+    from figkit.data import load_figure_data
+    from figkit.render import figure
+    from figkit.sheet import load_project
+    from figkit.spec import MAX_LABEL_CHARS
+    root = tmp_path_factory.mktemp("labels")
+    long_value = "S" + char * (value_len - 1)
+    frame = pd.DataFrame({"s": [long_value] * 20 + ["short"] * 20,
+                          "x": [float(i) for i in range(40)], "y": [float(i % 7) for i in range(40)]})
+    data_project(root, frame, dict(id="l", dataset="t", chart="scatter", x="x", y="y", strata="s"))
+    settings_ = {"datasets": {"t": "data/t.csv"}, "sheet": "figures.tsv",
+                 "fields": {"x": {"label": char * label_len}}}
+    project = load_project(root, settings=settings_)
+    spec = project.spec("l")
+    notes = load_figure_data(spec).notes
+    assert any("label of field 'x'" in n for n in notes)
+    assert any("1 panel titles" in n for n in notes)
+    start = time.monotonic()
+    fig = figure("l", project)
+    assert time.monotonic() - start < 60
+    texts = [t.get_text() for t in fig.findobj(matplotlib.text.Text)]
+    assert max(len(t) for t in texts) <= MAX_LABEL_CHARS + 20      # a unit may follow the label
+    assert any(t.endswith("\u2026") for t in texts)   # U+2026 HORIZONTAL ELLIPSIS (Unicode)
+
+
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(option=st.sampled_from([("box", "whisker"), ("violin", "bandwidth"), ("density", "bandwidth"),
+                               ("histogram", "bins")]),
+       value=st.sampled_from(["inf", "-inf", "nan", "1e999", "Infinity", "NaN"]))
+def test_options_that_are_not_finite_numbers_are_refused(tmp_path_factory, option, value):
+    import pandas as pd
+    chart, key = option
+    assert not __import__("math").isfinite(float(value))   # IEEE 754: not finite (Python's float)
+    frame = pd.DataFrame({"g": ["a", "b"] * 5, "v": [float(i) for i in range(10)]})
+    row = dict(id="o", dataset="t", chart=chart, x="g" if chart in ("box", "violin") else "v",
+               options=f"{key}={value}")
+    if chart in ("box", "violin"):
+        row["y"] = "v"
+    with pytest.raises(FigkitError) as info:
+        data_project(tmp_path_factory.mktemp("opt"), frame, row)
+    assert "field 'options'" in str(info.value) and key in str(info.value)
