@@ -127,8 +127,7 @@ def _cause(data: bytes, offset: int) -> str:
             return "the file is UTF-32 text; save it as UTF-8"
     head = data[:4096]
     if b"\x00" in head:
-        nul = head.count(b"\x00")
-        if nul * 3 >= len(head) and (head[1::2].count(0) > nul * 0.8 or head[0::2].count(0) > nul * 0.8):
+        if _looks_like_bomless_utf16(head):
             return "the file looks like UTF-16 text without a byte-order mark; save it as UTF-8"
         return "the file holds NUL bytes: it is binary, not text"
     byte = data[offset] if offset < len(data) else None
@@ -199,10 +198,17 @@ def data_encoding(path, opener=open) -> str:
         raise _refuse(path, head, 0, "data file")
     if enc == "utf-16":
         return "utf-16"
-    nul = head.find(b"\x00")
-    if nul >= 0:
-        raise _refuse(path, head, nul, "data file")
+    # A NUL inside a data value is the data's own (shown escaped, see shown()); a head where
+    # every other byte is NUL is UTF-16 saved without its byte-order mark.
+    if _looks_like_bomless_utf16(head):
+        raise _refuse(path, head, head.find(b"\x00"), "data file")
     return enc
+
+
+def _looks_like_bomless_utf16(head: bytes) -> bool:
+    nul = head.count(b"\x00")
+    return bool(nul) and nul * 3 >= len(head) and (
+        head[1::2].count(0) > nul * 0.8 or head[0::2].count(0) > nul * 0.8)
 
 
 def locate_bad_byte(path, encoding: str, opener=open) -> FigkitError:

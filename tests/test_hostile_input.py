@@ -696,3 +696,18 @@ def test_options_that_are_not_finite_numbers_are_refused(tmp_path_factory, optio
     with pytest.raises(FigkitError) as info:
         data_project(tmp_path_factory.mktemp("opt"), frame, row)
     assert "field 'options'" in str(info.value) and key in str(info.value)
+
+
+@FAST
+@given(text=st.text(st.characters(min_codepoint=0x20, max_codepoint=0x7e).filter(lambda c: c not in ',"'),
+                    min_size=4, max_size=60))
+def test_data_file_in_utf16_without_bom_is_refused_but_a_nul_in_a_value_is_data(tmp_path_factory, text):
+    from figkit.data import read_columns
+    root = tmp_path_factory.mktemp("nul")
+    plain = f"site,v\n{text},1\n"
+    (root / "a.csv").write_bytes(plain.encode("utf-16-le"))          # RFC 2781, no BOM
+    with pytest.raises(FigkitError) as info:
+        read_columns(root / "a.csv")
+    assert "UTF-16" in str(info.value) and "byte offset 1:" in str(info.value)
+    (root / "b.csv").write_bytes(f"site,v\nS\x00{text},1\n".encode("utf-8"))
+    assert read_columns(root / "b.csv") == ["site", "v"]   # data values are not ours to refuse
