@@ -215,9 +215,11 @@ def locate_bad_byte(path, encoding: str, opener=open) -> FigkitError:
     """After pandas failed to decode ``path``: scan it with an incremental decoder for the
     first undecodable byte and return the one-line error for it."""
     import codecs
-    decoder = codecs.getincrementaldecoder(encoding)()
     offset = 0
     with opener(path, "rb") as fh:
+        if encoding == "utf-8-sig":   # count the mark's three bytes, then plain UTF-8
+            encoding, offset = "utf-8", len(fh.read(3))
+        decoder = codecs.getincrementaldecoder(encoding)()
         while True:
             chunk = fh.read(1 << 20)
             try:
