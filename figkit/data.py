@@ -7,6 +7,7 @@ categorical, else numeric order for numbers, else natural sort ("S2" before "S10
 """
 from __future__ import annotations
 
+import gzip
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -14,10 +15,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .errors import FigkitError
+from .errors import SPELLING_POOL_MAX, SPELLING_SEARCHES_MAX, FigkitError, closest
 from .provenance import sha256_file  # noqa: F401  (also figkit.data.sha256_file, as before)
-from .spec import CATEGORY, NUMERIC, Banding, FigureSpec, check_columns
-from .text import shown
+from .spec import (CATEGORY, MAX_LABEL_CHARS, NUMERIC, Banding, FigureSpec, check_columns,
+                   short_label)
+from .text import data_encoding, locate_bad_byte, shown
 
 
 def _reader(path: Path):
@@ -25,6 +27,26 @@ def _reader(path: Path):
     if name.endswith(".parquet"):
         return "parquet"
     return "tsv" if name.endswith((".tsv", ".tsv.gz", ".txt")) else "csv"
+
+
+def _opener(path: Path):
+    return gzip.open if path.name.lower().endswith(".gz") else open
+
+
+def _text_options(path: Path, kind: str) -> dict:
+    """pandas' separator and encoding for a CSV/TSV file: UTF-8 with or without a byte-order
+    mark, UTF-16 with one (figkit.text.data_encoding checks the first bytes)."""
+    return {"sep": "\t" if kind == "tsv" else ",",
+            "encoding": data_encoding(path, _opener(path))}
+
+
+def _undecodable(path: Path) -> FigkitError:
+    """The one-line error for a data file pandas could not decode, with the byte offset."""
+    try:
+        enc = data_encoding(path, _opener(path))
+    except FigkitError as exc:
+        return exc
+    return locate_bad_byte(path, enc, _opener(path))
 
 
 def input_record(path: Path, root: Path) -> dict:
@@ -45,9 +67,11 @@ def read_columns(path: Path) -> list[str]:
         if kind == "parquet":
             import pyarrow.parquet as pq
             return list(pq.read_schema(path).names)
-        return list(pd.read_csv(path, nrows=0, sep="\t" if kind == "tsv" else ",").columns)
+        return list(pd.read_csv(path, nrows=0, **_text_options(path, kind)).columns)
     except ImportError:
         raise FigkitError("reading Parquet needs pyarrow: pip install pyarrow", value=str(path)) from None
+    except UnicodeDecodeError:
+        raise _undecodable(path) from None
     except (OSError, ValueError, UnicodeDecodeError) as exc:
         raise FigkitError(f"dataset file cannot be read ({type(exc).__name__})", value=str(path)) from None
 
@@ -57,9 +81,11 @@ def read_dataset(path: Path, columns: list[str]) -> pd.DataFrame:
     try:
         if kind == "parquet":   # positions in the file, whatever index pandas stored with it
             return pd.read_parquet(path, columns=columns).reset_index(drop=True)
-        return pd.read_csv(path, usecols=columns, sep="\t" if kind == "tsv" else ",", low_memory=False)
+        return pd.read_csv(path, usecols=columns, low_memory=False, **_text_options(path, kind))
     except ImportError:
         raise FigkitError("reading Parquet needs pyarrow: pip install pyarrow", value=str(path)) from None
+    except UnicodeDecodeError:
+        raise _undecodable(path) from None
     except (OSError, ValueError, UnicodeDecodeError, pd.errors.ParserError) as exc:
         first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise FigkitError(f"dataset file cannot be read: {first}", value=str(path)) from None
@@ -116,21 +142,48 @@ class Panel:
         return self.tally.n if self.tally is not None else len(self.frame)
 
 
+# Limits of what one figure can show legibly; past them a build would spend minutes laying out
+# text nobody can read.  Categories per axis: at 176 mm (a full page width) 300 bars leave about
+# half a millimetre each, well under a 5 pt tick label.
+MAX_CATEGORIES_PER_AXIS = 300
+# Panels per figure: a 15 x 15 grid of small multiples at full page width leaves panels of about
+# 10 mm, below any house style's panel minimum; more is a strata field with identifiers in it.
+MAX_PANELS = 225
+# A text column whose values are mostly numbers (or dates) with more than this many distinct
+# ones is a numeric (or date) column with stray text in it, not categories (the same number
+# as the rule for a numeric column used as categories).
+CONTINUOUS_DISTINCT = 50
+
+
+def _row_where(spec: FigureSpec, first_pos: int | None) -> str:
+    """', first at row R of the file (header = row 1)' for a row position, as in _text_error."""
+    if first_pos is None:
+        return ""
+    if _reader(spec.data_path) == "parquet":
+        return f", first in data row {first_pos + 1}"
+    return f", first at row {first_pos + 2} of the file (header = row 1)"
+
+
 def order_notes(fld: str, order: list, values) -> list[str]:
     """Cautions for an ``orders:`` list that does not match a field's values in the data file: a
     listed value the file never holds is most likely a typo, and the value meant is then placed
     (and coloured) as an unlisted one, so a category would change colour between figures."""
-    import difflib
     have = {str(v) for v in values}
     listed = [str(v) for v in order]
     missing = [v for v in listed if v not in have]
     unlisted = sorted(have - set(listed), key=natural_key)
     out = []
     if missing:
-        close = {m: difflib.get_close_matches(m, unlisted or sorted(have), n=1, cutoff=0.6) for m in missing}
-        hints = [f"'{m}'" + (f" (did you mean '{close[m][0]}'?)" if close[m] else "") for m in missing]
-        out.append(f"orders: the list for '{fld}' names {', '.join(hints)}, which the data never "
-                   "hold; check the spelling in config.yaml")
+        # bounded: at most SPELLING_SEARCHES_MAX searches, none over a pool of identifiers
+        pool = unlisted or sorted(have)
+        hints = []
+        for m in missing[:SPELLING_SEARCHES_MAX]:
+            best = closest(m, pool)
+            hints.append(f"'{shown(m)}'" + (f" (did you mean '{shown(best)}'?)" if best else ""))
+        more = len(missing) - len(hints)
+        out.append(f"orders: the list for '{fld}' names {', '.join(hints)}"
+                   + (f" and {more:,} more" if more else "")
+                   + ", which the data never hold; check the spelling in config.yaml")
     if unlisted:
         more = f" and {len(unlisted) - 5} more" if len(unlisted) > 5 else ""
         out.append(f"orders: '{fld}' has values the list leaves out ({', '.join(map(repr, unlisted[:5]))}"
@@ -142,7 +195,6 @@ def filter_notes(spec: FigureSpec, values_of) -> list[str]:
     """Cautions for text the filter compares with a column that the column never holds (in the
     whole file): ``arm in ["placebo", "hgh dose"]`` would silently keep only placebo rows.
     ``values_of(column)`` gives the column's distinct values, or None for a numeric column."""
-    import difflib
     if spec.filter is None:
         return []
     out = []
@@ -155,9 +207,10 @@ def filter_notes(spec: FigureSpec, values_of) -> list[str]:
             continue
         # an identifier column can hold a million values: no spelling search there; sorted, so
         # ties of the search and the values shown are the same on every rebuild
-        small = len(have) <= 5000
+        small = len(have) <= SPELLING_POOL_MAX
         pool = sorted(have, key=natural_key) if small else sorted(have)
-        close = difflib.get_close_matches(text, pool, n=1, cutoff=0.6) if small else []
+        best = closest(text, pool) if small else None
+        close = [best] if best else []
         shown = ", ".join(pool[:8]) + (f" ... ({len(have) - 8} more)" if len(have) > 8 else "")
         out.append(f"filter: {text!r} is not a value of '{col}' in the data, so it matches no row"
                    + (f" (did you mean {close[0]!r}?)" if close else "") + f"; '{col}' holds: {shown}")
@@ -256,10 +309,59 @@ def _check_kind(frame: pd.DataFrame, field: str, need: str, spec: FigureSpec, ro
             raise _stored_as_text(spec, field, role, s.dtype)
     if need == CATEGORY and pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
         distinct = s.nunique()
-        if distinct > 50:
+        if distinct > CONTINUOUS_DISTINCT:
             raise spec.err(f"{role} field '{field}' is continuous ({distinct} distinct values) but chart "
                            f"'{spec.chart.name}' needs categories", field=role, value=field,
                            allowed="a categorical column, or a band set (bands:) derived from it")
+    if need == CATEGORY:
+        return _check_categories(s, field, spec, role)
+    return None
+
+
+def _check_categories(s: pd.Series, field: str, spec: FigureSpec, role: str) -> str | None:
+    """A categorical axis: at most MAX_CATEGORIES_PER_AXIS values; a text column that holds
+    numbers or dates as text with many distinct values is refused (it is a measurement, not
+    categories); a few numbers mixed with text give a caution (returned)."""
+    uniques = pd.unique(s.dropna())
+    if len(uniques) > MAX_CATEGORIES_PER_AXIS:
+        raise spec.err(f"{role} field '{field}' has {len(uniques):,} distinct values, more than "
+                       f"one axis can show", field=role, value=field,
+                       allowed=f"at most {MAX_CATEGORIES_PER_AXIS} categories per axis (a filter, "
+                       "or a band set derived from the field)")
+    if not (s.dtype == object or pd.api.types.is_string_dtype(s)) or not len(uniques):
+        return None
+    text = pd.Series(uniques, dtype=object).map(lambda v: v if isinstance(v, str) else None)
+    numbers = pd.to_numeric(text, errors="coerce")
+    is_number = numbers.notna().to_numpy()
+    n_distinct = int(is_number.sum())
+    dates = None
+    if not is_number.any():
+        dates = pd.to_datetime(text, errors="coerce", format="ISO8601")
+        is_number = dates.notna().to_numpy()
+        n_distinct = int(is_number.sum())
+    if not is_number.any():
+        return None
+    what = "numbers" if dates is None else "dates"
+    word = {True: set(uniques[is_number]), False: set(uniques[~is_number])}
+    row_is_number = s.isin(word[True])
+    n_rows = int(row_is_number.sum())
+    other = s.notna() & ~row_is_number
+    n_other = int(other.sum())
+    first = _first_pos(s[other]) if n_other else None
+    sample = ", ".join(repr(v) for v in list(pd.unique(s[other]))[:3])
+    if n_distinct > CONTINUOUS_DISTINCT:
+        detail = (f"and text in {n_other} rows such as {sample}{_row_where(spec, first)}"
+                  if n_other else "")
+        raise spec.err(f"{role} field '{field}' holds {what} stored as text in {n_rows} rows "
+                       f"({n_distinct} distinct) {detail}, but chart '{spec.chart.name}' needs "
+                       "categories", field=role, value=field,
+                       allowed=f"a categorical column; or store the {what} as {what} and derive "
+                       "a band set (bands:) from them")
+    if n_other and dates is None:
+        return (f"{role} field '{field}' mixes numbers ({n_rows} rows) with text ({n_other} rows "
+                f"such as {sample}{_row_where(spec, first)}); each is drawn as a category of its "
+                "own, in natural order")
+    return None
 
 
 def split_rows(frame: pd.DataFrame, codes: np.ndarray, k: int, used: list[str]):
@@ -336,12 +438,20 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     for role, need in (("x", spec.chart.x), ("y", spec.chart.y)):
         fld = getattr(spec, role)
         if fld and need:
-            _check_kind(frame, fld, need, spec, role)
+            note = _check_kind(frame, fld, need, spec, role)
+            if note:
+                notes.append(note)
     if spec.weight:
         _check_kind(frame, spec.weight, NUMERIC, spec, "weight")
         if (frame[spec.weight].dropna() < 0).any():
             raise spec.err("weight field has negative values", field="weight", value=spec.weight,
                            allowed="counts or other non-negative numbers")
+        infinite = frame[spec.weight][np.isinf(frame[spec.weight].to_numpy(dtype=float))]
+        if len(infinite):   # a sum with one inf in it is inf: every bar or tile would be lost
+            raise spec.err(f"weight field '{spec.weight}' holds infinite values in "
+                           f"{len(infinite)} rows{_row_where(spec, _first_pos(infinite))}",
+                           field="weight", value=spec.weight,
+                           allowed="finite non-negative numbers (empty cells for missing)")
 
     # Axis groups and legend entries: only the values the figure keeps (a value the filter
     # removed would otherwise read as a true zero).
@@ -367,17 +477,18 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     elif len(spec.strata) == 1:
         fld = spec.strata[0]
         codes, levels_ = _factorized(frame[fld], fld, spec)
-        keys_list, labels, cells = [{fld: v} for v in levels_], [shown(v) for v in levels_], None
+        keys_list, labels, cells = [{fld: v} for v in levels_], [short_label(shown(v)) for v in levels_], None
     else:
         rf, cf = spec.strata
         rcodes, rlev = _factorized(frame[rf], rf, spec)
         ccodes, clev = _factorized(frame[cf], cf, spec)
         codes = rcodes * len(clev) + ccodes
         keys_list = [{rf: rv, cf: cv} for rv in rlev for cv in clev]
-        labels = [f"{shown(rv)} / {shown(cv)}" for rv in rlev for cv in clev]
+        labels = [short_label(f"{shown(rv)} / {shown(cv)}") for rv in rlev for cv in clev]
         cells = [(i, j) for i in range(len(rlev)) for j in range(len(clev))]
         grid_levels = (rlev, clev)
     k = len(keys_list)
+    _check_panel_count(spec, k)
     ordered, bounds, dropped = split_rows(frame, codes, k, used)
     # Which fields the dropped rows miss, with a count each (only when some are dropped).
     missing = {f: int(frame[f].isna().sum()) for f in used} if dropped.any() else {}
@@ -393,7 +504,58 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     data.missing = {f: n for f, n in missing.items() if n}
     from .scales import apply_scales
     apply_scales(spec, data)      # log/symlog axes: values in the space the axis draws
+    data.notes += _empty_panel_notes(spec, data) + _long_label_notes(spec, data)
     return data
+
+
+def _long_label_notes(spec: FigureSpec, data: "FigureData") -> list[str]:
+    """A caution for each axis title or panel title cut to MAX_LABEL_CHARS (spec.short_label)."""
+    out = []
+    fields = dict.fromkeys(f for f in (spec.x, spec.y, spec.colour, spec.weight, *spec.strata) if f)
+    for f in fields:
+        label, unit = spec.labels.get(f, (f, ""))
+        if label.endswith("\u2026") and len(label) == MAX_LABEL_CHARS or \
+                unit.endswith("\u2026") and len(unit) == MAX_LABEL_CHARS:
+            out.append(f"the label of field '{f}' is longer than {MAX_LABEL_CHARS} characters and "
+                       "is shown cut short with an ellipsis; shorten it under fields: in config.yaml")
+        elif len(f) > MAX_LABEL_CHARS and f not in spec.labels:
+            out.append(f"field name '{short_label(f)}' is longer than {MAX_LABEL_CHARS} characters; "
+                       "give it a short label under fields: in config.yaml")
+    cut = [p.label for p in data.panels if p.label.endswith("\u2026") and
+           len(p.label) == MAX_LABEL_CHARS]
+    if cut:
+        out.append(f"{len(cut)} panel titles are longer than {MAX_LABEL_CHARS} characters and are "
+                   "shown cut short with an ellipsis")
+    return out
+
+
+def _check_panel_count(spec: FigureSpec, k: int) -> None:
+    if k > MAX_PANELS:
+        raise spec.err(f"strata make {k:,} panels, more than one figure can show", field="strata",
+                       value=" by ".join(spec.strata), allowed=f"at most {MAX_PANELS} panels (a "
+                       "filter, or a band set derived from the field)")
+
+
+def _empty_panel_notes(spec: FigureSpec, data: "FigureData") -> list[str]:
+    """A figure none of whose panels has a complete row is refused (it would show nothing); a
+    panel left empty only because its rows miss values gets a caution."""
+    if not data.panels or any(p.n for p in data.panels):
+        empty = [p for p in data.panels if not p.n and p.n_dropped]
+        if not empty:
+            return []
+        names = ", ".join(repr(p.label) for p in empty[:5]) + (
+            f" and {len(empty) - 5} more" if len(empty) > 5 else "")
+        return [f"{len(empty)} of {len(data.panels)} panels draw no data ({names}): every row "
+                f"there misses a value of {', '.join(repr(f) for f in data.missing) or 'a field'}"]
+    worst = max(data.missing.items(), key=lambda kv: kv[1]) if data.missing else None
+    raise spec.err("no panel has a row with a value in every field it draws, so the figure "
+                   "would show nothing" + (f": '{worst[0]}' is missing in {worst[1]} of "
+                                           f"{data.n_kept} rows" if worst else ""),
+                   field=None if worst is None else next(
+                       (r for r in ("x", "y", "colour", "weight") if getattr(spec, r) == worst[0]),
+                       None),
+                   value=None if worst is None else worst[0],
+                   allowed="rows with values in x, y and the other fields the chart uses")
 
 
 # ---------------------------------------------------------------------------- streaming path
@@ -437,8 +599,10 @@ def iter_chunks(path: Path, columns: list[str], rows: int | None = None):
             yield chunk
         return
     try:
-        yield from pd.read_csv(path, usecols=columns, sep="\t" if kind == "tsv" else ",",
-                               chunksize=rows, low_memory=False)
+        yield from pd.read_csv(path, usecols=columns, chunksize=rows, low_memory=False,
+                               **_text_options(path, kind))
+    except UnicodeDecodeError:
+        raise _undecodable(path) from None
     except (OSError, ValueError, UnicodeDecodeError, pd.errors.ParserError) as exc:
         first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise FigkitError(f"dataset file cannot be read: {first}", value=str(path)) from None
@@ -560,6 +724,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
         rl, cl = order(strata[0]), order(strata[1])
         keys_list = [{strata[0]: r, strata[1]: c} for r in rl for c in cl]
         cells = [(i, j) for i in range(len(rl)) for j in range(len(cl))]
+    _check_panel_count(spec, len(keys_list))
     grid = edges = bin_info = None
     if spec.chart.name == "hexbins":
         from .aggregate import padded_range
@@ -607,7 +772,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     panels = []
     for i, keys in enumerate(keys_list):
         tally = tallies[tuple(keys.get(f) for f in strata)]
-        label = " / ".join(shown(v) for v in keys.values())
+        label = short_label(" / ".join(shown(v) for v in keys.values()))
         frame = pd.DataFrame({f: pd.Series(dtype=float) for f in used})
         panels.append(Panel(label, {k: _json_value(v) for k, v in keys.items()}, frame,
                             tally.n_dropped, cells[i] if cells else None, tally=tally))
@@ -617,6 +782,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     data.missing = {f: n for f, n in missing.items() if n}
     data.notes = [n for f in ordered for n in order_notes(f, spec.orders[f], sorted(whole[f], key=natural_key))]
     data.notes += filter_notes(spec, lambda col: None if col in numeric else whole.get(col))
+    data.notes += _empty_panel_notes(spec, data) + _long_label_notes(spec, data)
     data.streamed = {"chunk_rows": CHUNK_ROWS, "hex_grid": None if grid is None else
                      [grid.xmin, grid.xmax, grid.ymin, grid.ymax, grid.nx],
                      "bin_edges": None if edges is None else edges.tolist(), "bin_info": bin_info,

@@ -18,7 +18,7 @@ from .charts import DRAWERS, Context
 from .colour import assign_categories
 from .data import FigureData
 from .errors import FigkitError
-from .spec import FigureSpec
+from .spec import FigureSpec, short_label
 from .style import mm_to_in, pt_to_mm
 from .text import shown
 
@@ -382,11 +382,11 @@ def _panel_title(panel, spec: FigureSpec) -> str:
     if not panel.keys:
         return ""
     (fld, value), = panel.keys.items()
-    label = spec.labels.get(fld, (fld, ""))[0]
+    label = short_label(spec.labels.get(fld, (fld, ""))[0])
     # A bare number says nothing on its own: name the field beside it.
     if isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, bool):
         return f"{label} {value:g}" if isinstance(value, float) else f"{label} {value}"
-    return shown(value)
+    return short_label(shown(value))   # cut at MAX_LABEL_CHARS, cautioned by figkit.data
 
 
 def panel_letter(i: int, case: str) -> str:

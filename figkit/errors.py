@@ -8,12 +8,27 @@ from __future__ import annotations
 
 from collections.abc import Iterable
 
+# The closest-spelling search (difflib's ratio) costs time in the product of the lengths of the
+# two strings, once per allowed value: searching a column of a million identifiers, or thousands
+# of misspelt values each against thousands of values, would hang a build for a hint.  So a
+# search looks through at most this many allowed values (more: no hint) ...
+SPELLING_POOL_MAX = 5_000
+# ... and one message makes at most this many searches (the values it names are cut there too).
+SPELLING_SEARCHES_MAX = 5
+# A bad value is quoted in messages up to this many characters (then '...'): a 1 MB cell must
+# not become a 1 MB line on the terminal.
+SHOWN_VALUE_MAX = 200
+
 
 def closest(value, choices, cutoff: float = 0.6) -> str | None:
     """The allowed value closest in spelling to ``value`` (difflib's ratio, at least ``cutoff``:
-    the same search as the filter and orders checks), or None."""
+    the same search as the filter and orders checks), or None; None too when there are more than
+    SPELLING_POOL_MAX choices or ``value`` is longer than SHOWN_VALUE_MAX characters."""
     import difflib
-    if not isinstance(value, str):
+    if not isinstance(value, str) or len(value) > SHOWN_VALUE_MAX:
+        return None
+    choices = list(choices)
+    if len(choices) > SPELLING_POOL_MAX:
         return None
     found = difflib.get_close_matches(value, [str(c) for c in choices], n=1, cutoff=cutoff)
     return found[0] if found else None
@@ -46,10 +61,16 @@ class FigkitError(Exception):
             where.append(f"field '{self.field}'")
         text = (", ".join(where) + ": " if where else "") + self.message
         if self.value is not None and repr(self.value) not in text:
-            text += f" (got {self.value!r})"
+            shown_value = repr(self.value)
+            if len(shown_value) > SHOWN_VALUE_MAX:
+                shown_value = (f"{shown_value[:SHOWN_VALUE_MAX - 3]}... "
+                               f"({len(str(self.value)):,} characters)")
+            text += f" (got {shown_value})"
         if self.allowed is not None:
             allowed = self.allowed if isinstance(self.allowed, str) else ", ".join(
                 str(a) for a in self.allowed)
+            if len(allowed) > 20 * SHOWN_VALUE_MAX:   # thousands of categories: name the first
+                allowed = allowed[:20 * SHOWN_VALUE_MAX - 3] + "..."
             text += f"; allowed: {allowed}"
         from .text import shown    # a cell's control characters must not reach the terminal
         return shown(" ".join(text.split()))  # always one line

@@ -40,6 +40,9 @@ Meaning, row by row (two-valued, so a filter always gives a plain true/false mas
 from __future__ import annotations
 
 import difflib
+import math
+import sys
+import unicodedata
 from dataclasses import dataclass
 
 import numpy as np
@@ -65,6 +68,10 @@ def _error(text: str, pos: int, what: str, hint: str | None = None) -> FigkitErr
     if hint:
         msg += f"; {hint}"
     return FigkitError(msg)
+
+
+def _short(src: str, width: int = 40) -> str:
+    return src if len(src) <= width else src[:width - 3] + "..."
 
 
 def _shown_text(text: str, pos: int, width: int = 100) -> str:
@@ -156,37 +163,45 @@ def _char_hint(text: str, pos: int) -> str | None:
         return "attribute access is not allowed"
     if ch in "+-*/%":
         return "arithmetic is not supported"
+    if ch.isdigit() or unicodedata.category(ch) == "No":
+        return "write numbers with the digits 0-9"
     if not ch.isascii() and ch.isalpha():
         return "write column names with other letters in backquotes, e.g. `Höhe`"
     return None
 
 
+def _digit(ch: str) -> bool:
+    """An ASCII digit 0-9.  ``str.isdigit`` also takes superscripts and the digits of other
+    scripts ('²', '٣'), which ``int`` then refuses or reads as a number nobody typed on purpose."""
+    return "0" <= ch <= "9" and len(ch) == 1
+
+
 def _starts_number(text: str, i: int) -> bool:
     # '-' belongs to a number only when a digit follows ("-3", "-.5"); there is no arithmetic.
     rest = text[i + 1:i + 3] if text[i] == "-" else text[i:i + 2]
-    return rest[:1].isdigit() or (rest[:1] == "." and rest[1:2].isdigit())
+    return _digit(rest[:1]) or (rest[:1] == "." and _digit(rest[1:2]))
 
 
 def _scan_number(text: str, i: int, tokens: list[_Token]) -> int:
     start, n = i, len(text)
     if text[i] == "-":
         i += 1
-    while i < n and text[i].isdigit():
+    while i < n and _digit(text[i]):
         i += 1
     is_float = False
     if i < n and text[i] == ".":
         is_float = True
         i += 1
-        while i < n and text[i].isdigit():
+        while i < n and _digit(text[i]):
             i += 1
     if i < n and text[i] in "eE":
         j = i + 1
         if j < n and text[j] in "+-":
             j += 1
-        if j < n and text[j].isdigit():
+        if j < n and _digit(text[j]):
             is_float = True
             i = j
-            while i < n and text[i].isdigit():
+            while i < n and _digit(text[i]):
                 i += 1
     src = text[start:i]
     if i < n and (_is_name_char(text[i]) or text[i] == "."):
@@ -194,9 +209,14 @@ def _scan_number(text: str, i: int, tokens: list[_Token]) -> int:
         while j < n and (_is_name_char(text[j]) or text[j] == "."):
             j += 1
         raise _error(text, start, f"malformed number {text[start:j]!r}")
-    value: float | int = float(src) if is_float else int(src)
+    # Long digit strings go through float: int() refuses more than 4,300 digits (Python's
+    # int_max_str_digits) and numpy comparisons want a value in float range anyway.
+    value: float | int = float(src) if is_float or len(src) > 16 else int(src)
     if isinstance(value, int) and abs(value) > 2 ** 53:
         value = float(value)   # keep numpy comparisons in range for any column dtype
+    if isinstance(value, float) and not math.isfinite(value):
+        raise _error(text, start, f"number {_short(src)!r} is out of range",
+                     f"numbers must lie within ±{sys.float_info.max:.3g}")
     tokens.append(_Token("NUM", value, start, src))
     return i
 

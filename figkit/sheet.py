@@ -8,7 +8,9 @@ from __future__ import annotations
 
 import copy
 import csv
+import io
 import json
+import os
 from dataclasses import dataclass, field
 from functools import lru_cache
 from pathlib import Path
@@ -17,10 +19,24 @@ import jsonschema
 import yaml
 
 from .errors import FigkitError, did_you_mean
-from .text import refuse_controls
+from .text import read_text, refuse_controls
 
 SCHEMA_DIR = Path(__file__).with_name("schemas")
 CONFIG_FILE = Path("config") / "config.yaml"
+# The longest cell a sheet may hold.  The longest cell a figure needs is a caption, and a
+# paragraph of caption fits in a few thousand characters; a longer cell is pasted data or a
+# runaway export, and would only make every check and message that quotes it slow.
+MAX_CELL_CHARS = 5_000
+# The results folder's path, made absolute, may be at most this long: Linux's PATH_MAX is 4,096
+# bytes for a whole path, and figures/<id>.<format> plus a temporary '.part' name must still fit
+# under it (and under the 260 characters older Windows tools allow, for a folder shared there).
+MAX_RESULTS_PATH_CHARS = 1_024
+# One component of a path: NAME_MAX of Linux file systems and POSIX's usual value.
+MAX_NAME_BYTES = 255
+# Figures are never written into the operating system's own folders (pseudo-files under /proc
+# and /sys, devices, programs, system settings), even by a tool running with the rights to.
+SYSTEM_FOLDERS = ("/proc", "/sys", "/dev", "/etc", "/boot", "/bin", "/sbin", "/usr", "/lib",
+                  "/lib64", "/var/lib")
 
 
 @lru_cache(maxsize=None)
@@ -97,12 +113,50 @@ def validate_config(data: dict, root: Path | str = ".") -> Config:
             full["default_size"] not in full["sizes"]:
         raise FigkitError("config.yaml: 'default_size' is not one of the project's sizes:",
                           field="default_size", value=full["default_size"], allowed=sorted(full["sizes"]))
+    _check_results_folder(Path(root), full["results"])
     styles = Path(root) / full["styles_dir"]
-    if styles.is_dir() and not (styles / f"{full['style']}.yaml").is_file():
+    style_file = styles / f"{full['style']}.yaml"   # a link (even a bad one): load_style says
+    if styles.is_dir() and not (style_file.is_file() or style_file.is_symlink()):
         raise FigkitError("config.yaml: 'style' names an unknown house style", value=full["style"],
                           allowed=sorted(p.stem for p in styles.glob("*.yaml")) or
                           f"none found in {styles}")
     return Config(Path(root), full)
+
+
+def _check_results_folder(root: Path, results: str) -> None:
+    """The results folder must be a folder figkit can make and write: not a file (nor under
+    one), not in a system folder, not longer than the limits above."""
+    def refuse(why: str, allowed: str) -> FigkitError:
+        return FigkitError(f"config.yaml: the results folder {why}", field="results",
+                           value=results, allowed=allowed)
+    if not results.strip():
+        raise refuse("is empty", "a folder name such as results")
+    full = Path(os.path.abspath(root / results))
+    if len(str(full)) > MAX_RESULTS_PATH_CHARS:
+        raise refuse(f"is {len(str(full)):,} characters long as an absolute path",
+                     f"at most {MAX_RESULTS_PATH_CHARS:,} characters")
+    long = [part for part in full.parts if len(part.encode("utf-8", "surrogateescape")) > MAX_NAME_BYTES]
+    if long:
+        raise refuse(f"has a name of {len(long[0].encode('utf-8', 'surrogateescape')):,} bytes",
+                     f"names of at most {MAX_NAME_BYTES} bytes between the slashes")
+    try:
+        real = full.resolve()
+    except (OSError, RuntimeError):   # a symlink loop on the way
+        raise refuse("goes through a symbolic link that points to itself",
+                     "a folder reached without a link loop") from None
+    for candidate in (full, real):       # as written first, then with links followed
+        for system in SYSTEM_FOLDERS:
+            if candidate == Path(system) or Path(system) in candidate.parents:
+                raise refuse(f"lies under the system folder {system}",
+                             "a folder of your own, such as results inside the project")
+    probe = real
+    while not probe.exists():   # the first part of the path that exists must be a folder
+        if probe.parent == probe:
+            break
+        probe = probe.parent
+    if probe.exists() and not probe.is_dir():
+        where = "is a file" if probe == real else f"lies under {probe}, which is a file"
+        raise refuse(where, "a folder (or a path where one can be made)")
 
 
 def _refuse_controls_in(value, path: list) -> None:
@@ -125,7 +179,7 @@ def load_config(root: Path | str = ".") -> Config:
     if not path.is_file():
         raise FigkitError(f"no project settings at {path}; run 'figkit init DIR' to start a project")
     try:
-        data = yaml.safe_load(path.read_text(encoding="utf-8")) or {}
+        data = yaml.safe_load(read_text(path, "settings file")) or {}
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         where = f" at line {mark.line + 1}" if mark else ""
@@ -149,6 +203,14 @@ class SheetRow:
 def check_row(number: int, cells: dict) -> SheetRow:
     """Validate one row against the sheet schema; defaults are filled in."""
     sch = schema("sheet")
+    for name, value in cells.items():
+        if len(value) > MAX_CELL_CHARS:
+            return SheetRow(number, {"id": cells["id"]} if "id" in cells and
+                            len(cells["id"]) <= MAX_CELL_CHARS else {}, FigkitError(
+                f"cell of {len(value):,} characters is longer than the limit",
+                row=number, figure=cells.get("id") if len(cells.get("id", "")) <= 200 else None,
+                field=name, value=value, allowed=f"at most {MAX_CELL_CHARS:,} characters"),
+                given=frozenset(cells))
     errors = sorted(jsonschema.Draft202012Validator(sch).iter_errors(cells), key=lambda e: list(e.path))
     full = _defaults(sch)
     full.update(cells)
@@ -173,8 +235,7 @@ def read_sheet(path: Path | str) -> list[SheetRow]:
     path = Path(path)
     if not path.is_file():
         raise FigkitError(f"figure sheet not found: {path}")
-    with path.open(newline="", encoding="utf-8") as fh:
-        lines = list(csv.reader(fh, delimiter="\t"))
+    lines = _sheet_records(path)
     if not lines:
         raise FigkitError(f"figure sheet {path} is empty; it needs a header row")
     header = [h.strip() for h in lines[0]]
@@ -210,6 +271,21 @@ def read_sheet(path: Path | str) -> list[SheetRow]:
         seen.setdefault(row.id, number)
         rows.append(row)
     return rows
+
+
+def _sheet_records(path: Path) -> list[list[str]]:
+    """The sheet's records (lists of cells); its bytes decoded as figkit.text.read_text says."""
+    text = read_text(path, "figure sheet")
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter="\t")
+    lines: list[list[str]] = []
+    try:
+        for values in reader:
+            lines.append(values)
+    except csv.Error as exc:   # e.g. a cell longer than the csv module's field limit
+        raise FigkitError(f"figure sheet {path.name} cannot be read as tab-separated text: {exc}",
+                          row=len(lines) + 1,
+                          allowed=f"cells of at most {MAX_CELL_CHARS:,} characters") from None
+    return lines
 
 
 def _refuse_other_separators(path: Path, header: list[str]) -> None:

@@ -7,6 +7,8 @@ what is allowed.
 """
 from __future__ import annotations
 
+import math
+
 import hashlib
 import json
 from dataclasses import dataclass, field
@@ -169,6 +171,18 @@ class FigureSpec:
         return FigkitError(message, row=self.row, figure=self.id, **kw)
 
 
+# The longest axis title, unit or panel title drawn in full.  A full-width figure (176 mm) holds
+# about 80 characters of 7 pt text on one line; a longer label would be wrapped over many lines
+# and take the layout minutes to fit.  Longer labels are cut with an ellipsis, and cautioned.
+MAX_LABEL_CHARS = 80
+
+
+def short_label(text) -> str:
+    """``text`` as drawn: at most MAX_LABEL_CHARS characters, the last an ellipsis if cut."""
+    text = str(text)
+    return text if len(text) <= MAX_LABEL_CHARS else text[:MAX_LABEL_CHARS - 1] + "\u2026"
+
+
 def _parse_options(text: str | None, kind: ChartKind, err) -> dict:
     opts = {k: spec[1] for k, spec in kind.options.items()}
     if not text:
@@ -188,6 +202,9 @@ def _parse_options(text: str | None, kind: ChartKind, err) -> dict:
             what = {"float": "number", "int": "whole number"}.get(typ.__name__, typ.__name__)
             raise err(f"option '{key}' needs a {what}", field="options", value=raw,
                       allowed=allowed) from None
+        if isinstance(value, float) and not math.isfinite(value):
+            raise err(f"option '{key}' needs a finite number", field="options", value=raw,
+                      allowed=allowed)
         if isinstance(allowed, tuple) and value not in allowed:
             raise err(f"option '{key}' value not allowed", field="options", value=raw, allowed=allowed)
         opts[key] = value
@@ -222,7 +239,9 @@ def _check_option_ranges(opts: dict, err) -> None:
             number = float(v)
         except ValueError:
             number = -1
-        if number <= 0 or (key == "bins" and not float(v).is_integer()):
+        if not math.isfinite(number):   # 'inf', 'nan', '1e999'
+            number = -1
+        if number <= 0 or (key == "bins" and not number.is_integer()):
             allowed = "scott, silverman or a positive number" if key == "bandwidth" else \
                 "fd, sturges or a whole number of bins"
             raise err(f"option '{key}' not understood", field="options", value=v, allowed=allowed)
@@ -326,7 +345,8 @@ def build_spec(row: SheetRow, config: Config, columns: list[str] | None = None) 
         raise err("option 'centre' needs a numeric colour field", field="options",
                   value=f"centre={options['centre']:g}", allowed="give 'colour' a numeric field")
 
-    labels = {k: (v.get("label", k), v.get("unit", "")) for k, v in (config.get("fields") or {}).items()}
+    labels = {k: (short_label(v.get("label", k)), short_label(v.get("unit", "")))
+              for k, v in (config.get("fields") or {}).items()}
     spec = FigureSpec(
         id=fig, row=num, dataset=c["dataset"], data_path=data_path, chart=kind, x=c.get("x"),
         y=c.get("y"), colour=c.get("colour"), weight=c.get("weight"), strata=strata, trend=trend,

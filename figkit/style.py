@@ -10,6 +10,7 @@ from pathlib import Path
 import yaml
 
 from .errors import FigkitError
+from .text import read_text
 
 MM_PER_INCH = 25.4
 PT_PER_INCH = 72.0
@@ -124,23 +125,43 @@ def _parsed_rc(path: str, _mtime_ns: int, _size: int) -> dict:
         raise FigkitError(f"style sheet {path} cannot be read: {exc}") from None
 
 
+def _inside_styles(path: Path, styles_dir: Path, *, row=None, figure=None) -> None:
+    """A house style's files must lie inside the styles folder once symbolic links are followed:
+    a style is shared with co-authors, and a link to a system file (or a '../' name) would read
+    a file from outside the project into every figure; a link to itself would loop."""
+    try:
+        real, home = path.resolve(strict=True), styles_dir.resolve(strict=True)
+    except FileNotFoundError:
+        return   # a missing file has its own message
+    except (OSError, RuntimeError):
+        raise FigkitError(f"house style file {path} is a symbolic link that points to itself "
+                          "(a link loop)", row=row, figure=figure, field="style",
+                          allowed="a file inside the styles folder") from None
+    if home not in real.parents:
+        raise FigkitError(f"house style file {path} lies outside the styles folder {styles_dir} "
+                          f"(it leads to {real})", row=row, figure=figure, field="style",
+                          allowed=f"files inside {styles_dir}")
+
+
 def load_style(name: str, styles_dir: Path | str, extra_sizes: dict | None = None,
                dpi: int | None = None, *, row=None, figure=None) -> HouseStyle:
     """Load ``styles_dir/<name>.yaml`` and the style sheet it names."""
     styles_dir = Path(styles_dir)
     path = styles_dir / f"{name}.yaml"
+    _inside_styles(path, styles_dir, row=row, figure=figure)
     if not path.is_file():
         known = sorted(p.stem for p in styles_dir.glob("*.yaml")) or ["none found in " + str(styles_dir)]
         raise FigkitError("unknown house style", row=row, figure=figure, field="style", value=name,
                           allowed=known)
     try:
-        data = yaml.safe_load(path.read_text(encoding="utf-8")) or {}
+        data = yaml.safe_load(read_text(path, "house style")) or {}
     except yaml.YAMLError:
         raise FigkitError(f"house style {path} is not valid YAML") from None
     missing = sorted(_REQUIRED - set(data))
     if missing:
         raise FigkitError(f"house style {path} lacks settings: {', '.join(missing)}")
-    sheet = styles_dir / data["sheet"]
+    sheet = styles_dir / str(data["sheet"])
+    _inside_styles(sheet, styles_dir, row=row, figure=figure)
     if not sheet.is_file():
         raise FigkitError(f"house style {path} names a style sheet that does not exist", value=str(sheet))
     # A project's sizes: (config.yaml) are the presets it uses: they replace the style's, so a
