@@ -67,17 +67,9 @@ def load_render(path: Path | str) -> np.ndarray:
     Flattening on white gives what a reader sees on the page, so a render saved with and one
     without an alpha channel compare by their visible pixels.
     """
-    from PIL import Image, UnidentifiedImageError
-    path = Path(path)
-    try:
-        with Image.open(path) as im:
-            im = im.convert("RGBA")
-    except FileNotFoundError:
-        raise FigkitError("image not found", value=str(path)) from None
-    except (UnidentifiedImageError, OSError) as exc:
-        raise FigkitError(f"cannot read image {path}: {exc}") from None
-    paper = Image.new("RGBA", im.size, (255, 255, 255, 255))
-    return np.asarray(Image.alpha_composite(paper, im).convert("RGB"))
+    im, _ = _open_image(Path(path), full=True)
+    with im:
+        return np.asarray(_flat_rgb(im))
 
 
 def _as_image(img, name: str) -> np.ndarray:

@@ -23,7 +23,7 @@ from pathlib import Path
 import numpy as np
 
 from .compare import (INK_ADDED, INK_RECOLOURED, INK_REMOVED, Change, FigureComparison, Report,
-                      diff_image, load_for_compare, on_common_canvas, overlay_image)
+                      _show, diff_image, load_for_compare, on_common_canvas, overlay_image)
 from .errors import FigkitError
 
 PAGE = "index.html"
@@ -93,11 +93,6 @@ def _hex(rgb) -> str:
 def _save_png(arr: np.ndarray, path: Path) -> None:
     from PIL import Image
     Image.fromarray(arr, mode="RGB").save(path, format="PNG", compress_level=3)
-
-
-def _show(v) -> str:
-    from .compare import _show as show
-    return show(v)
 
 
 def _numbers_table(changes: list[Change]) -> str:

@@ -752,6 +752,15 @@ class MeanInterval:
     method: str          # "t" or "bootstrap"
 
 
+def _mean_start(values, level):
+    """(checked level, finite values, n, mean) for the interval functions below."""
+    level = _check_level(level)
+    v = _finite(values, "y")
+    if v.size == 0:
+        raise FigkitError("a mean needs at least one value", field="y")
+    return level, v, int(v.size), float(v.mean())
+
+
 def mean_t_interval(values, level: float = 0.95) -> MeanInterval:
     """Mean and Student-t confidence interval (Student 1908):
 
@@ -759,12 +768,7 @@ def mean_t_interval(values, level: float = 0.95) -> MeanInterval:
 
     Assumes independent observations and a sampling distribution of the mean close to normal.
     """
-    level = _check_level(level)
-    v = _finite(values, "y")
-    n = int(v.size)
-    if n == 0:
-        raise FigkitError("a mean needs at least one value", field="y")
-    mean = float(v.mean())
+    level, v, n, mean = _mean_start(values, level)
     if n < 2:
         return MeanInterval(n, mean, None, None, None, "t")
     sd = float(v.std(ddof=1))
@@ -781,12 +785,7 @@ def mean_bootstrap_interval(values, resamples: int = 4000, seed: int = 20261202,
     (1-level)/2 and (1+level)/2 quantiles (numpy's linear method) of the means of ``resamples``
     resamples of size n drawn with replacement, from numpy's default generator seeded with
     ``seed`` (the same interval on every rebuild)."""
-    level = _check_level(level)
-    v = _finite(values, "y")
-    n = int(v.size)
-    if n == 0:
-        raise FigkitError("a mean needs at least one value", field="y")
-    mean = float(v.mean())
+    level, v, n, mean = _mean_start(values, level)
     if n < 2:
         return MeanInterval(n, mean, None, None, None, "bootstrap")
     rng = np.random.default_rng(seed)

@@ -22,6 +22,20 @@ def copy_project(dest: Path) -> Path:
     return dest
 
 
+def write_penguin_project(root: Path, sheet: str, formats: str = "[png]") -> Path:
+    """A project over the Palmer penguins data (Gorman, Williams & Fraser 2014, as shipped by
+    the palmerpenguins package) with the given figure sheet."""
+    from palmerpenguins import load_penguins
+    (root / "config").mkdir(parents=True)
+    (root / "data").mkdir()
+    shutil.copytree(REPO / "figkit" / "styles", root / "styles")
+    load_penguins().to_csv(root / "data" / "penguins.csv", index=False)
+    (root / "config" / "config.yaml").write_text(
+        f"datasets:\n  penguins: data/penguins.csv\nformats: {formats}\n")
+    (root / "config" / "figures.tsv").write_text(sheet)
+    return root
+
+
 def make_demo_data(project: Path, scale: str = DEMO_SCALE) -> None:
     subprocess.run([sys.executable, "-m", "figkit.demo", str(project / "data"), "--scale", scale],
                    check=True, capture_output=True)

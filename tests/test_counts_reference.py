@@ -17,6 +17,8 @@ from palmerpenguins import load_penguins
 
 from figkit.render import load_project, render
 
+from conftest import write_penguin_project
+
 REPO = Path(__file__).resolve().parents[1]
 
 SHEET = """id\tdataset\tchart\tx\ty\tcolour\tweight\tstrata\toptions
@@ -29,15 +31,7 @@ mass-bars\tpenguins\tcount-bars\tspecies\t\t\tbody_mass_g\t\t
 
 @pytest.fixture(scope="module")
 def penguin_project(tmp_path_factory) -> Path:
-    root = tmp_path_factory.mktemp("penguins")
-    (root / "config").mkdir()
-    (root / "data").mkdir()
-    shutil.copytree(REPO / "figkit" / "styles", root / "styles")
-    load_penguins().to_csv(root / "data" / "penguins.csv", index=False)
-    (root / "config" / "config.yaml").write_text(
-        "datasets:\n  penguins: data/penguins.csv\nformats: [png, svg]\n")
-    (root / "config" / "figures.tsv").write_text(SHEET)
-    return root
+    return write_penguin_project(tmp_path_factory.mktemp("penguins"), SHEET, "[png, svg]")
 
 
 @pytest.fixture(scope="module")

@@ -10,7 +10,6 @@ from memory).  Every figure check reads the files figkit wrote (sidecar JSON, va
 from __future__ import annotations
 
 import json
-import shutil
 from pathlib import Path
 
 import numpy as np
@@ -21,6 +20,8 @@ from palmerpenguins import load_penguins
 from figkit import stats
 from figkit.errors import FigkitError
 from figkit.render import load_project, render
+
+from conftest import write_penguin_project
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -39,16 +40,8 @@ def penguins() -> pd.DataFrame:
 
 
 @pytest.fixture(scope="module")
-def project(tmp_path_factory, penguins) -> Path:
-    root = tmp_path_factory.mktemp("penguin-means")
-    (root / "config").mkdir()
-    (root / "data").mkdir()
-    shutil.copytree(REPO / "figkit" / "styles", root / "styles")
-    penguins.to_csv(root / "data" / "penguins.csv", index=False)
-    (root / "config" / "config.yaml").write_text(
-        "datasets:\n  penguins: data/penguins.csv\nformats: [png]\n")
-    (root / "config" / "figures.tsv").write_text(SHEET)
-    return root
+def project(tmp_path_factory) -> Path:
+    return write_penguin_project(tmp_path_factory.mktemp("penguin-means"), SHEET)
 
 
 def _built(project: Path, fig_id: str):

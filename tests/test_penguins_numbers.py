@@ -11,7 +11,6 @@ Every check reads the files figkit wrote (sidecar JSON, values CSV).
 from __future__ import annotations
 
 import json
-import shutil
 from pathlib import Path
 
 import numpy as np
@@ -20,6 +19,8 @@ import pytest
 from palmerpenguins import load_penguins
 
 from figkit.render import load_project, render
+
+from conftest import write_penguin_project
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -45,16 +46,8 @@ def penguins() -> pd.DataFrame:
 
 
 @pytest.fixture(scope="module")
-def project(tmp_path_factory, penguins) -> Path:
-    root = tmp_path_factory.mktemp("penguin-numbers")
-    (root / "config").mkdir()
-    (root / "data").mkdir()
-    shutil.copytree(REPO / "figkit" / "styles", root / "styles")
-    penguins.to_csv(root / "data" / "penguins.csv", index=False)
-    (root / "config" / "config.yaml").write_text(
-        "datasets:\n  penguins: data/penguins.csv\nformats: [png]\n")
-    (root / "config" / "figures.tsv").write_text(SHEET)
-    return root
+def project(tmp_path_factory) -> Path:
+    return write_penguin_project(tmp_path_factory.mktemp("penguin-numbers"), SHEET)
 
 
 def _built(project: Path, fig_id: str) -> tuple[dict, pd.DataFrame]:
