@@ -503,7 +503,7 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     data.notes = notes
     data.missing = {f: n for f, n in missing.items() if n}
     from .scales import apply_scales
-    apply_scales(spec, data)      # log/symlog axes: values in the space the axis draws
+    apply_scales(spec, data)      # log/signed-log axes: values in the space the axis draws
     data.notes += _empty_panel_notes(spec, data) + _long_label_notes(spec, data)
     return data
 

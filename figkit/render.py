@@ -297,7 +297,7 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
             cautions.append("the straight line is fitted to log10(y): on the data's own scale it is "
                             "an exponential fit, y = 10^(intercept + slope * x), and its slope is a "
                             "change in log10 units (a factor of 10^slope per x unit)")
-        elif spec.trend == "line" and y_scale == "symlog":
+        elif spec.trend == "line" and y_scale == "signed-log":
             cautions.append("the straight line is fitted to the symmetric log of y: on the data's "
                             "own scale it is neither straight nor exponential")
         if spec.chart.name == "lines" and any("x values repeat" in r.get("line_is", "")

@@ -1,7 +1,7 @@
 """Axis scales: linear, log10 and a symmetric log, applied by transforming the values.
 
 A row asks for a scale with the options ``x_scale`` / ``y_scale`` (``linear``, ``log10``,
-``symlog``) and, for the symmetric log, ``threshold`` (its linear threshold C, in data units).
+``signed-log``) and, for the symmetric log, ``threshold`` (its linear threshold C, in data units).
 The values of a scaled field are *replaced by their transform* once, after the panels are split
 and before any chart kind sees them; every statistic is therefore computed in the space the axis
 draws (hexagon lattices, 2-D counts, bins, densities, trend fits, box statistics), and the axis
@@ -9,7 +9,7 @@ gets ticks at powers of ten labelled with the untransformed values.
 
 * log10: t = log10(v).  Values v <= 0 have no logarithm: they are counted per panel, dropped
   from that panel and named in the cautions with their share (never clipped to a small number).
-* symlog: the bi-symmetric log transform of Webber (2012, Meas. Sci. Technol. 24, 027001),
+* signed-log: the bi-symmetric log transform of Webber (2012, Meas. Sci. Technol. 24, 027001),
   t = sign(v) * log10(1 + |v| / C).  It keeps zeros and negatives; for |v| well below C it is
   nearly linear (t ~ v / (C ln 10)), for |v| well above C nearly logarithmic
   (t ~ sign(v) (log10|v| - log10 C)).  C is the row's ``threshold`` (default 1).
@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import numpy as np
 
-SCALES = ("linear", "log10", "symlog")
+SCALES = ("linear", "log10", "signed-log")
 DEFAULT_THRESHOLD = 1.0
 
 
@@ -38,7 +38,7 @@ def forward(v, scale: str, threshold: float = DEFAULT_THRESHOLD) -> np.ndarray:
     if scale == "log10":
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.log10(v)
-    if scale == "symlog":
+    if scale == "signed-log":
         return np.sign(v) * np.log10(1.0 + np.abs(v) / threshold)
     return v
 
@@ -47,7 +47,7 @@ def inverse(t, scale: str, threshold: float = DEFAULT_THRESHOLD) -> np.ndarray:
     t = np.asarray(t, dtype=float)
     if scale == "log10":
         return 10.0 ** t
-    if scale == "symlog":
+    if scale == "signed-log":
         return np.sign(t) * threshold * (10.0 ** np.abs(t) - 1.0)
     return t
 
@@ -55,7 +55,7 @@ def inverse(t, scale: str, threshold: float = DEFAULT_THRESHOLD) -> np.ndarray:
 def describe(scale: str, threshold: float) -> str:
     if scale == "log10":
         return "log10(value)"
-    if scale == "symlog":
+    if scale == "signed-log":
         return f"sign(value) * log10(1 + |value| / {threshold:g}) (symmetric log, Webber 2012)"
     return "value"
 
@@ -97,15 +97,15 @@ def apply_scales(spec, data) -> None:
         share = 100.0 * n / total if total else 0.0
         data.notes.append(f"log10 axis: {n} of {total} rows ({share:.1f}%) have '{fld}' <= 0, which "
                           "has no logarithm; they are not drawn (scale_dropped per panel); "
-                          "x_scale/y_scale=symlog keeps zeros and negatives")
+                          "x_scale/y_scale=signed-log keeps zeros and negatives")
     for role, (name, fld) in scales.items():
         data.scales[role] = {"field": fld, "scale": name, "drawn_as": describe(name, c),
-                             "threshold": c if name == "symlog" else None,
+                             "threshold": c if name == "signed-log" else None,
                              "dropped": dropped_total.get(fld, 0),
                              "numbers_in": f"the transformed space: statistics of '{fld}' in this "
                                            "sidecar and the stats and values files are of "
                                            + describe(name, c)}
-        if name == "symlog":
+        if name == "signed-log":
             data.notes.append(f"symmetric log axis for '{fld}': nearly linear for |value| below "
                               f"about {c:g} (threshold), logarithmic above; distances across the "
                               "threshold do not read as ratios")
@@ -113,7 +113,7 @@ def apply_scales(spec, data) -> None:
 
 def ticks(lo: float, hi: float, scale: str, threshold: float = DEFAULT_THRESHOLD):
     """(major positions, labels, minor positions) in transformed units for a view [lo, hi].
-    Majors at powers of ten (and 0 for symlog), minors at 2..9 times them.  When a view holds
+    Majors at powers of ten (and 0 for signed-log), minors at 2..9 times them.  When a view holds
     fewer than two powers of ten, 2x and 5x multiples are labelled too."""
     if hi < lo:
         lo, hi = hi, lo
@@ -121,7 +121,7 @@ def ticks(lo: float, hi: float, scale: str, threshold: float = DEFAULT_THRESHOLD
     if scale == "log10":
         k0, k1 = int(np.floor(lo)) - 1, int(np.ceil(hi)) + 1
         decades = [10.0 ** k for k in range(k0, k1 + 1)]
-    else:   # symlog: decades from the threshold's order upwards, on both sides of zero
+    else:   # signed-log: decades from the threshold's order upwards, on both sides of zero
         top = max(abs(inverse(lo, scale, threshold)), abs(inverse(hi, scale, threshold)), threshold)
         k0 = int(np.floor(np.log10(threshold))) - 1
         k1 = int(np.ceil(np.log10(top))) + 1
@@ -130,7 +130,7 @@ def ticks(lo: float, hi: float, scale: str, threshold: float = DEFAULT_THRESHOLD
     for d in decades:
         pos.append(d)
     minors_v = [m * d for d in decades for m in range(2, 10)]
-    if scale == "symlog":     # inside the linear zone (|v| < C) only 0 is marked
+    if scale == "signed-log":     # inside the linear zone (|v| < C) only 0 is marked
         pos = [d for d in pos if d >= threshold]
         minors_v = [m for m in minors_v if m >= threshold]
         values = [0.0] + pos + [-d for d in pos]
@@ -143,7 +143,7 @@ def ticks(lo: float, hi: float, scale: str, threshold: float = DEFAULT_THRESHOLD
         t = forward(np.array(vals, dtype=float), scale, threshold)
         return [(float(a), v) for a, v in zip(t, vals) if lo - eps <= a <= hi + eps]
     major = inside(values)
-    if scale == "symlog":          # keep majors at least 0.3 transformed units apart
+    if scale == "signed-log":          # keep majors at least 0.3 transformed units apart
         thinned = []
         for a, v in sorted(major):
             if not thinned or a - thinned[-1][0] >= 0.3:
@@ -151,7 +151,7 @@ def ticks(lo: float, hi: float, scale: str, threshold: float = DEFAULT_THRESHOLD
         major = thinned
     if len(major) < 2:
         extra = inside([m * d for d in decades for m in (2, 5)]
-                       + ([-m * d for d in decades for m in (2, 5)] if scale == "symlog" else []))
+                       + ([-m * d for d in decades for m in (2, 5)] if scale == "signed-log" else []))
         major = sorted(set(major) | set(extra))
     minor = [a for a, v in inside(minors_v) if all(abs(a - b) > eps for b, _ in major)]
     return [a for a, _ in major], [label(v) for _, v in major], minor

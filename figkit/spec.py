@@ -40,7 +40,7 @@ class ChartKind:
 
 
 _OVERPLOT = ("auto", "points", "translucent", "jitter", "bins")
-_SCALE = ("linear", "log10", "symlog")
+_SCALE = ("linear", "log10", "signed-log")
 _THRESHOLD = {"threshold": (float, 1.0, "the symmetric log's linear threshold, above 0")}
 _XY_SCALES = {"x_scale": (str, "linear", _SCALE), "y_scale": (str, "linear", _SCALE), **_THRESHOLD}
 _X_SCALE = {"x_scale": (str, "linear", _SCALE), **_THRESHOLD}
@@ -337,10 +337,10 @@ def build_spec(row: SheetRow, config: Config, columns: list[str] | None = None) 
     if options.get("interval") == "wilson" and c.get("weight"):
         raise err("a Wilson interval needs counts of rows (independent units), not summed weights",
                   field="options", value="interval=wilson", allowed="leave 'weight' empty, or no interval")
-    if "threshold" in (c.get("options") or "") and "symlog" not in (
+    if "threshold" in (c.get("options") or "") and "signed-log" not in (
             options.get("x_scale"), options.get("y_scale")):
         raise err("option 'threshold' is the symmetric log's linear threshold", field="options",
-                  value=f"threshold={options['threshold']:g}", allowed="x_scale=symlog or y_scale=symlog")
+                  value=f"threshold={options['threshold']:g}", allowed="x_scale=signed-log or y_scale=signed-log")
     if options.get("centre") is not None and not c.get("colour"):
         raise err("option 'centre' needs a numeric colour field", field="options",
                   value=f"centre={options['centre']:g}", allowed="give 'colour' a numeric field")

@@ -31,7 +31,7 @@ SHEET = "\t".join(["id", "dataset", "chart", "x", "y", "strata", "trend", "optio
         ["exp-line", "skew", "scatter", "day", "titre", "site", "line", "y_scale=log10"],
         ["hist-log", "skew", "histogram", "titre", "", "", "", "x_scale=log10; bins=fd"],
         ["box-log", "skew", "box", "site", "titre", "", "", "y_scale=log10"],
-        ["dens-sym", "skew", "density", "change", "", "", "", "x_scale=symlog; threshold=2"],
+        ["dens-sym", "skew", "density", "change", "", "", "", "x_scale=signed-log; threshold=2"],
         ["bad-threshold", "skew", "histogram", "titre", "", "", "", "threshold=2"],
     ]) + "\n"
 
@@ -69,15 +69,15 @@ def _built(project: Path, fig_id: str) -> dict:
     return json.loads((project / "results" / "figures" / f"{fig_id}.json").read_text())
 
 
-def test_symlog_formula_and_inverse():
+def test_signed_log_formula_and_inverse():
     # Webber (2012) bi-symmetric log, from memory: t = sign(v) log10(1 + |v|/C)
     v = np.array([-1000.0, -2.0, 0.0, 2.0, 18.0, 1000.0])
-    t = scales.forward(v, "symlog", 2.0)
+    t = scales.forward(v, "signed-log", 2.0)
     assert t[2] == 0.0
     assert t[3] == pytest.approx(math.log10(2.0))          # 1 + 2/2 = 2
     assert t[4] == pytest.approx(1.0)                      # 1 + 18/2 = 10
     assert t[0] == pytest.approx(-t[5])
-    assert np.allclose(scales.inverse(t, "symlog", 2.0), v)
+    assert np.allclose(scales.inverse(t, "signed-log", 2.0), v)
 
 
 def test_hexagons_counted_on_log10_values(project, frame):
@@ -170,18 +170,18 @@ def test_decade_ticks_read_back_from_svg(project):
     assert n_ticks >= len(decades) + 8
 
 
-def test_symlog_keeps_zeros_and_states_threshold(project, frame):
+def test_signed_log_keeps_zeros_and_states_threshold(project, frame):
     car = _built(project, "dens-sym")
     s = car["scales"]["x"]
-    assert s["scale"] == "symlog" and s["threshold"] == 2.0 and s["dropped"] == 0
+    assert s["scale"] == "signed-log" and s["threshold"] == 2.0 and s["dropped"] == 0
     assert car["panels"][0]["groups"][0]["n"] == len(frame)
     assert any("nearly linear for |value| below about 2" in c for c in car["cautions"])
 
 
-def test_threshold_without_symlog_is_one_line_error(project):
+def test_threshold_without_signed_log_is_one_line_error(project):
     with pytest.raises(FigkitError) as exc:
         render(load_project(project), "bad-threshold")
     text = str(exc.value)
     assert "\n" not in text
-    for part in ("bad-threshold", "options", "threshold=2", "symlog"):
+    for part in ("bad-threshold", "options", "threshold=2", "signed-log"):
         assert part in text
