@@ -619,6 +619,10 @@ def prepare_lines(ctx: Context) -> None:
     lo, hi = (min(ends), max(ends)) if ends else (0.0, 1.0)
     ctx.shared["ylim"] = padded_range(lo, hi)
     ctx.shared.update(line_tables=tables, gap_rule=rule, max_step=max_step)
+    # Whole-number x (months, years, doses in steps) gets whole-number ticks: "2.5" of a month
+    # is no value the data can take.
+    ctx.shared["whole_x"] = bool(x_all.size) and spec.options.get("x_scale", "linear") == "linear" \
+        and bool(np.all(np.equal(np.mod(x_all, 1), 0)))
     if spec.options.get("gap", "auto") == "none":
         ctx.cautions.append("gap=none: lines bridge every step between x values, also missing "
                             "periods, and so draw values that were never measured")
@@ -659,6 +663,9 @@ def draw_lines(ax, panel: Panel, ctx: Context) -> dict:
                                   "ci_low": None if not np.isfinite(low[i]) else float(low[i]),
                                   "ci_high": None if not np.isfinite(high[i]) else float(high[i])}
                                  for i in range(len(xs))]})
+    if sh.get("whole_x"):
+        from matplotlib.ticker import MaxNLocator
+        ax.xaxis.set_major_locator(MaxNLocator(integer=True))
     rec = {"groups": groups, "gap": sh["gap_rule"],
            "line_is": ("the mean of y at each x (x values repeat), with its 95% t interval "
                        "as a band" if band else "the mean of y at each x (x values repeat)")

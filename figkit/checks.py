@@ -69,10 +69,10 @@ def text_collisions(fig) -> list[tuple[str, str]]:
     """Pairs of visible texts whose drawn boxes overlap, and texts leaving the canvas."""
     renderer = fig.canvas.get_renderer()
     boxes = [(t.get_text(), t.get_window_extent(renderer)) for t in _visible_texts(fig)]
-    W, H = fig.bbox.width, fig.bbox.height
+    c = fig.bbox   # a sub-figure's canvas starts where its cell does (figkit.compose)
     hits = []
     for text, bb in boxes:
-        if bb.x0 < -0.5 or bb.y0 < -0.5 or bb.x1 > W + 0.5 or bb.y1 > H + 0.5:
+        if bb.x0 < c.x0 - 0.5 or bb.y0 < c.y0 - 0.5 or bb.x1 > c.x1 + 0.5 or bb.y1 > c.y1 + 0.5:
             hits.append((text, "<outside the canvas>"))
     for i, (ta, a) in enumerate(boxes):
         for tb, b in boxes[i + 1:]:

@@ -129,7 +129,10 @@ def _overlap(a, b, gap: float = 0.0) -> bool:
 
 
 def _outside(fig, bb) -> bool:
-    return bb.x0 < -0.5 or bb.y0 < -0.5 or bb.x1 > fig.bbox.width + 0.5 or bb.y1 > fig.bbox.height + 0.5
+    # fig.bbox, not (0, 0, width, height): a part of a multi-part figure is drawn in a sub-figure
+    # whose canvas starts where its cell does (figkit.compose).
+    c = fig.bbox
+    return bb.x0 < c.x0 - 0.5 or bb.y0 < c.y0 - 0.5 or bb.x1 > c.x1 + 0.5 or bb.y1 > c.y1 + 0.5
 
 
 def _measure(fig, axes, which: str) -> float:
@@ -150,7 +153,7 @@ def _right_overhang(fig, axes, grid: L.Grid) -> float:
     for i, ax in enumerate(axes):
         if i % grid.cols != grid.cols - 1:
             continue
-        right = ax.get_position().x1 * fig.bbox.width
+        right = fig.bbox.x0 + ax.get_position().x1 * fig.bbox.width
         for t in _drawn_tick_labels(ax.xaxis, renderer):
             worst = max(worst, _mm(fig, t.get_window_extent(renderer).x1 - right))
     return worst
@@ -164,7 +167,7 @@ def _top_overhang(fig, axes, grid: L.Grid) -> float:
     for i, ax in enumerate(axes):
         if i >= grid.cols:
             break
-        top = ax.get_position().y1 * fig.bbox.height
+        top = fig.bbox.y0 + ax.get_position().y1 * fig.bbox.height
         for t in _drawn_tick_labels(ax.yaxis, renderer):
             worst = max(worst, _mm(fig, t.get_window_extent(renderer).y1 - top))
     return worst
@@ -443,13 +446,18 @@ _PREPARING = {"histogram": "binning", "hexbins": "binning", "scatter": "measurin
               "tiles": "counting"}
 
 
-def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
+def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None, *,
+                 target=None, floor: L.Margins | None = None):
     """Draw the figure; returns (figure, record) where record holds layout and per-panel numbers.
     ``note`` is one line of small print under the x title (the strata comparison, when the house
-    style asks for it)."""
+    style asks for it).
+
+    A part of a multi-part figure (figkit.compose) is drawn into ``target``, a matplotlib
+    SubFigure of the part's cell (``spec.width_mm`` by ``spec.height_mm``), with margins at least
+    ``floor`` so that the panel edges of parts side by side line up."""
     from . import progress
     progress.stage(_PREPARING.get(spec.chart.name, "preparing"))
-    job = _Assembly(spec, data, note)
+    job = _Assembly(spec, data, note, target=target, floor=floor)
     job.make_figure(job.plan_grid())
     progress.stage(f"drawing {len(data.panels)} panel{'' if len(data.panels) == 1 else 's'}")
     job.draw_panels()
@@ -459,7 +467,9 @@ def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
     if not job.measured_at_final_size():
         # The overplotting choice changes at the final panel size: draw again, measured there.
         final = (job.grid.panel_w, job.grid.panel_h)
-        job = _Assembly(spec, data, note, panel_mm=final)
+        if target is not None:   # a sub-figure cannot be emptied: clear it for the new drawing
+            target.clear()
+        job = _Assembly(spec, data, note, panel_mm=final, target=target, floor=floor)
         job.make_figure(job.plan_grid())
         job.draw_panels()
         job.prepare_texts()
@@ -471,7 +481,9 @@ def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None):
     job.draw_axis_titles()
     job.check_drawn()
     _escape_left_controls(job.fig)
-    return job.fig, job.record()
+    record = job.record()
+    record["margins"] = job.margin    # for figkit.compose (parts line up); not in the sidecar
+    return job.fig, record
 
 
 def _escape_left_controls(fig) -> None:
@@ -492,8 +504,10 @@ class _Assembly:
     public method is one step of :func:`build_figure`, in the order it calls them."""
 
     def __init__(self, spec: FigureSpec, data: FigureData, note: str | None,
-                 panel_mm: tuple[float, float] | None = None):
+                 panel_mm: tuple[float, float] | None = None, *, target=None,
+                 floor: L.Margins | None = None):
         st = spec.style
+        self.target, self.floor = target, floor   # a part's sub-figure and its margin floor
         self.panel_hint = panel_mm    # the panel size to measure overplotting at, when known
         self.spec, self.data, self.note, self.st = spec, data, note, st
         self.panels = data.panels
@@ -548,12 +562,19 @@ class _Assembly:
 
     def margins(self, legend_w: float, ytick_w: float | None = None,
                 xtick_h: float | None = None) -> L.Margins:
-        """Margins for the current title lines; tick label sizes default to the estimates."""
-        return _margins(self.spec, title_lines=self.title_lines,
-                        ytick_w=self.est_y if ytick_w is None else ytick_w,
-                        xtick_h=self.est_x if xtick_h is None else xtick_h,
-                        legend_w=legend_w, xtitle_lines=self.x_lines, ytitle_lines=self.y_lines,
-                        note=bool(self.note))
+        """Margins for the current title lines; tick label sizes default to the estimates.  A
+        part of a multi-part figure keeps at least its floor: left, bottom, and top with the
+        panel titles, so that its panel edges line up with its neighbours'."""
+        m = _margins(self.spec, title_lines=self.title_lines,
+                     ytick_w=self.est_y if ytick_w is None else ytick_w,
+                     xtick_h=self.est_x if xtick_h is None else xtick_h,
+                     legend_w=legend_w, xtitle_lines=self.x_lines, ytitle_lines=self.y_lines,
+                     note=bool(self.note))
+        f = self.floor
+        if f is None:
+            return m
+        return replace(m, left=max(m.left, f.left), bottom=max(m.bottom, f.bottom),
+                       top=max(m.top, f.top + f.title - m.title))
 
     def choose_grid(self, m: L.Margins) -> L.Grid:
         """The grid for margins ``m``: fixed by the two strata, else the wrap rule; a grid that
@@ -613,8 +634,11 @@ class _Assembly:
         spec = self.spec
         m = self.margins(self.legend_room)
         height = spec.height_mm or L.grid_height(grid.rows, grid.panel_h, m)
-        self.fig = Figure(figsize=(mm_to_in(spec.width_mm), mm_to_in(height)), dpi=72)
-        FigureCanvasAgg(self.fig)
+        if self.target is not None:      # a part's cell: its size is the cell's
+            self.fig = self.target
+        else:
+            self.fig = Figure(figsize=(mm_to_in(spec.width_mm), mm_to_in(height)), dpi=72)
+            FigureCanvasAgg(self.fig)
         first = None
         for _ in self.panels:
             ax = self.fig.add_axes((0, 0, 0.1, 0.1), sharex=first if self.share_x else None,
@@ -672,7 +696,7 @@ class _Assembly:
         if self.titles:
             self.title_texts = [_panel_title(p, spec) if not spec.grid else "" for p in self.panels]
         if spec.letters and self.titles:
-            self.title_texts = [f"{panel_letter(i, st.letters)}  {t}".strip()
+            self.title_texts = [f"{panel_letter(spec.letter_from + i, st.letters)}  {t}".strip()
                                 for i, t in enumerate(self.title_texts)]
         self.bold = _measurer(self.fig, st.title_pt, "bold")
         self.plain = _measurer(self.fig, st.base_pt)
@@ -686,7 +710,8 @@ class _Assembly:
         panels when an axis is shared (the rule follows the grid, which may change)."""
         spec = self.spec
         h = spec.height_mm or L.grid_height(grid.rows, grid.panel_h, margin)
-        self.fig.set_size_inches(mm_to_in(spec.width_mm), mm_to_in(h))
+        if self.target is None:          # a part's cell keeps its size (spec.height_mm is set)
+            self.fig.set_size_inches(mm_to_in(spec.width_mm), mm_to_in(h))
         for i, ax in enumerate(self.axes):
             ax.tick_params(labelbottom=not self.share_x or L.below_empty(grid, i),
                            labelleft=not self.share_y or i % grid.cols == 0)
@@ -849,7 +874,7 @@ class _Assembly:
                         if all(a <= b for a, b in zip(_legend_size(ctx, spec, k), (room_w, room_h)))]
                 ncol = fits[0] if fits else 1
             leg = fig.legend(handles=handles, title=ctx.colour_title, loc="upper left",
-                             bbox_to_anchor=(x0 / W, ytop / H), bbox_transform=fig.transFigure, ncol=ncol,
+                             bbox_to_anchor=(x0 / W, ytop / H), bbox_transform=fig.transSubfigure, ncol=ncol,
                              fontsize=pt, title_fontsize=pt, alignment="left",
                              borderaxespad=0, borderpad=0, columnspacing=1.0)
             return [leg]
@@ -995,7 +1020,7 @@ class _Assembly:
             ctx.cautions.append(notes)
         _pin_ticks(fig)
         from .checks import text_collisions
-        fig.draw_without_rendering()   # legends place their texts only when drawn
+        fig.get_figure(root=True).draw_without_rendering()   # legends place their texts only when drawn
         clashes = text_collisions(fig)
         if clashes:
             a, b = clashes[0]
@@ -1057,7 +1082,7 @@ def _y_title(spec: FigureSpec) -> str:
 
 def _rule(fig, x0, x1, y0, y1=None):
     from matplotlib.lines import Line2D
-    return Line2D([x0, x1], [y0, y0 if y1 is None else y1], transform=fig.transFigure,
+    return Line2D([x0, x1], [y0, y0 if y1 is None else y1], transform=fig.transSubfigure,
                   color=HEADER_RULE, linewidth=0.4)
 
 
@@ -1100,7 +1125,7 @@ def _key_problem(fig, artists: list, axes) -> float | None:
             own.append(a)
             own_boxes.append(a.get_window_extent(renderer))
     right = max((b.x1 for b in own_boxes), default=0.0)
-    over = _mm(fig, right - fig.bbox.width) + EDGE_MM
+    over = _mm(fig, right - fig.bbox.x1) + EDGE_MM
     if over > 0:
         return over
     ids = {id(t) for t in own}

@@ -77,12 +77,13 @@ def drawn_values(spec: FigureSpec, panels: list[dict], edges=None) -> list[dict]
     return out
 
 
-def _values_csv(lines: list[dict]) -> str:
+def _values_csv(lines: list[dict], lead: tuple = ()) -> str:
+    """``lead``: columns in front (a multi-part figure's ``part``)."""
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(VALUES_COLUMNS)
+    w.writerow([*lead, *VALUES_COLUMNS])
     for line in lines:
-        w.writerow(["" if (v := P.clean(line.get(c))) is None else v for c in VALUES_COLUMNS])
+        w.writerow(["" if (v := P.clean(line.get(c))) is None else v for c in (*lead, *VALUES_COLUMNS)])
     return buf.getvalue()
 
 
@@ -214,11 +215,15 @@ def rebuild_command(spec: FigureSpec, results: str) -> str:
 def render(project: Project, figure_id: str, granted: dict | None = None) -> dict:
     """Build one figure's files and sidecar under ``results/figures``; return the sidecar.
     Every mistake found on the way names the sheet row and the figure.  ``granted``: the
-    resources the workflow gave the job (mem_mb, runtime), for the sidecar."""
+    resources the workflow gave the job (mem_mb, runtime), for the sidecar.  A row made of
+    other rows (a ``parts`` cell) is drawn by figkit.compose."""
     from . import progress
     row = find_row(project.rows, figure_id)
     try:
         with progress.job(figure_id):
+            if row.error is None and "parts" in row.cells:
+                from .compose import render_parts
+                return render_parts(project, row, granted)
             return _render(project, row, granted)
     except FigkitError as exc:
         raise exc.at(row=row.number, figure=figure_id) from None
@@ -237,7 +242,6 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
     check_ceiling(spec, size, project.config.get("max_mem_mb"))   # before reading any data
     data = load_figure_data(spec, stream_above_bytes=limit)
     out_dir = project.config.results / "figures"
-    results_rel = project.config["results"]
 
     strata = strata_comparison(spec, data)
     with mpl.rc_context(spec.style.rc):
@@ -245,158 +249,177 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
         progress.stage("checking text and line sizes")
         sizes = enforce_minimums(fig, spec.style.min_text_pt, spec.style.min_line_pt,
                                  figure=spec.id, row=spec.row)
-        stat_lines = panel_statistics(spec, data)
-        panel_stats = {}
-        for line in stat_lines:
-            if line["group"] is None:
-                panel_stats[line["panel"]] = {k: line[k] for k in STATS_COLUMNS[2:]}
-
-        panels = []
-        for p, rec in zip(data.panels, drawn["panel_records"]):
-            entry = {"label": p.label, "keys": p.keys, "n": p.n, "n_dropped": p.n_dropped}
-            if data.scales:
-                entry["scale_dropped"] = dict(getattr(p, "scale_dropped", {}) or {})
-            if p.cell is not None:
-                entry["cell"] = list(p.cell)
-            entry["stats"] = panel_stats.get(p.label)
-            entry.update(rec)
-            panels.append(entry)
-
-        from .colour import check_separability, separability
-        sep = separability(drawn["colours"])
-        cautions = list(data.notes) + _dropped_notes(spec, data) + list(drawn["cautions"])
-        # Greyscale is reported, not judged: most qualitative palettes fail it by design.
-        collisions = check_separability(drawn["colours"], spec.style.min_colour_difference)
-        judged = [c for c in collisions if "greyscale" not in c]
-        if judged and spec.style.strict:
-            raise spec.err("colours too alike (strict house style): " + "; ".join(judged))
-        cautions += judged
-        # Greyscale is information, as in preflight ("not judged"): said with its remedy, and
-        # not at all where the figure already carries a non-colour cue for its groups.
-        cue = next((o for o in ("shapes", "dashes") if o in spec.chart.options), None)
-        # lines always carry a marker and a dash pattern per group (charts._line_cues)
-        if not (cue and spec.options.get(cue) == "yes") and spec.chart.name != "lines":
-            remedy = f"; add {cue}=yes under options for a cue that is not colour" if cue else ""
-            cautions += [f"{c}: not judged, but a greyscale print would merge these groups{remedy}"
-                         for c in collisions if "greyscale" in c]
-        if spec.ranges != "common" and len(data.panels) > 1 and spec.chart.name in (
-                "count-bars", "histogram", "density", "shares", "scatter", "hexbins", "box", "violin",
-                "means", "lines"):
-            cautions.append(f"ranges are '{spec.ranges}': panels have their own axis ranges, so "
-                            "compare shapes within a panel, not heights across panels")
-        if spec.trend != "none" and spec.colour and spec.colour in data.levels:
-            cautions.append(f"one {spec.trend} trend per panel is fitted over all '{spec.colour}' "
-                            "groups together; it can differ from every group's own trend "
-                            "(see the per-group lines of the stats file)")
-        if spec.trend == "line":
-            cautions.append("confidence band, slope intervals and the strata F-test treat every "
-                            "row as independent; repeated readings of the same units (sites, "
-                            "patients) make them look more precise than they are")
-        y_scale = (data.scales or {}).get("y", {}).get("scale")
-        if spec.trend == "line" and y_scale == "log10":
-            cautions.append("the straight line is fitted to log10(y): on the data's own scale it is "
-                            "an exponential fit, y = 10^(intercept + slope * x), and its slope is a "
-                            "change in log10 units (a factor of 10^slope per x unit)")
-        elif spec.trend == "line" and y_scale == "signed-log":
-            cautions.append("the straight line is fitted to the symmetric log of y: on the data's "
-                            "own scale it is neither straight nor exponential")
-        if spec.chart.name == "lines" and any("x values repeat" in r.get("line_is", "")
-                                              for r in drawn["panel_records"]):
-            cautions.append("lines join the mean of y at each x (x values repeat); the band is each "
-                            "mean's 95% t interval, treating every row as independent")
-        if spec.chart.name == "means":
-            how = ("percentile bootstrap of the mean (Efron & Tibshirani 1993), "
-                   f"{spec.options.get('resamples', 4000)} resamples, seed {spec.options.get('seed', 20261202)}"
-                   if spec.options.get("interval") == "bootstrap" else "Student t interval of the mean")
-            cautions.append(f"95% intervals: {how}; they treat every row as independent, so "
-                            "repeated readings of the same units (sites, patients) make them look "
-                            "more precise than they are; they show the mean's uncertainty, not the "
-                            "spread of the data")
-            if (data.scales or {}).get("y", {}).get("scale") == "log10":
-                cautions.append("on a log10 y axis the dot is the mean of log10(y): a geometric "
-                                "mean, not the arithmetic mean of the values")
-        if spec.trend == "loess":
-            cautions.append("LOESS shows a local average; its shape depends on the span "
-                            f"({spec.options.get('span', 0.75)}) and says nothing about uncertainty")
-        record = {
-            "id": spec.id,
-            "size_mm": drawn["size_mm"],
-            "size_preset": spec.size_preset,   # which preset, and from where (row or a default)
-            "dpi": spec.style.dpi,
-            "files": {fmt: f"{spec.id}.{fmt}" for fmt in spec.formats},
-            "inputs": data.inputs,
-            "chart": spec.chart.name,
-            "x": spec.x, "y": spec.y, "colour": spec.colour, "weight": spec.weight,
-            "strata": list(spec.strata),
-            "filter": spec.filter.text if spec.filter is not None else None,
-            "derived": [b.as_record() for b in spec.bandings] or None,
-            "layout": drawn["layout"],
-            "panels": panels,
-            "rows_read": data.n_read, "rows_kept": data.n_kept, "rows_without_stratum": data.n_unassigned,
-            "missing_values": dict(data.missing or {}),   # field -> rows of the panels missing it
-            "strata_test": strata,
-            "scales": data.scales or None,   # axis -> scale, how drawn, values dropped
-            "colours": {"used": drawn["colours"], "min_delta_e": sep.min_delta_e},
-            "min_font_pt": sizes.min_font_pt,
-            "min_line_pt": sizes.min_line_pt,
-            "cautions": [shown(c) for c in cautions],   # they quote data values
-            "style": {"name": spec.style.name, "files": spec.style.digest()},
-            "row_sha256": P.row_sha256(row.cells),
-            # The row with every setting it reads (labels, orders, colours, bands, sizes) and
-            # figkit's version, as the workflow's rerun trigger sees them: preflight compares it.
-            "fingerprint": fingerprint(row, project.config),
-            # Where the settings came from: config.yaml, or the config Snakemake resolved from
-            # it and --configfile / --config / a profile (the fingerprint reads the same).
-            # The job's size as estimated from the file (figkit.jobsize), and what the workflow
-            # granted it (the estimate at the time the workflow was read, grown on retries).
-            "resources": {**size.record(), "granted": granted},
-            "settings": {"from": project.settings_from,
-                         "sha256": P.settings_sha256(project.config.data)},
-            "rebuild": rebuild_command(spec, results_rel),
-            "versions": {**P.versions(), "font": P.font_file(spec.style.rc.get("font.family", ["DejaVu Sans"])[0]
-                                                            if isinstance(spec.style.rc.get("font.family"), list)
-                                                            else spec.style.rc.get("font.family", "DejaVu Sans"))},
-        }
-        if "bin_edges" in drawn:
-            record["bin_edges"] = drawn["bin_edges"]
-            record["bins"] = drawn["bins"]
-        if data.streamed is not None:
-            record["streamed"] = {k: v for k, v in data.streamed.items()
-                                  if k not in ("bin_edges", "bin_info")}
-        for msg in cautions:
+        record, stat_lines, min_delta_e = figure_record(project, row, spec, data, strata, drawn,
+                                                        sizes, size, granted)
+        panels = record["panels"]
+        for msg in record["cautions"]:
             log.warning("%s: %s", spec.id, msg)
-
-        meta = json.dumps(P.file_metadata(record), sort_keys=True, separators=(",", ":"))
-        targets = [out_dir / f"{spec.id}.{fmt}" for fmt in spec.formats]
-        record["values_file"] = f"{spec.id}.values.csv"
-        targets += [out_dir / record["values_file"], out_dir / f"{spec.id}.stats.csv",
-                    out_dir / f"{spec.id}.json"]
-        with P.atomic_outputs(targets) as temps:
-            for fmt, tmp in zip(spec.formats, temps):
-                progress.stage(f"writing {fmt.upper()}")
-                _save(fig, tmp, fmt, spec, meta)
-            progress.stage("preflight: reading the files back")
-            # Preflight reads the files just written (still under their temporary names); in a
-            # strict house style a failure aborts here and nothing is renamed into place.
-            from .preflight import preflight
-            pf = preflight({fmt: t for fmt, t in zip(spec.formats, temps)}, sizes_mm=spec.style.sizes,
-                           min_text_pt=spec.style.min_text_pt, min_line_pt=spec.style.min_line_pt,
-                           min_dpi=spec.style.min_dpi, min_delta_e=sep.min_delta_e,
-                           delta_e_threshold=spec.style.min_colour_difference, strict=spec.style.strict,
-                           names=record["files"])
-            record["preflight"] = pf
-            failed = [c for c in pf["checks"] if not c["passed"] and c.get("level") != "warning"]
-            if failed and spec.style.strict:
-                raise spec.err("preflight failed: " + "; ".join(
-                    f"{c['name']} ({c['message']})" for c in failed))
-            for c in failed:
-                log.warning("%s: preflight: %s: %s", spec.id, c["name"], c["message"])
-            progress.stage("writing the sidecar and tables")
-            temps[-3].write_text(_values_csv(drawn_values(spec, panels, record.get("bin_edges"))),
-                                 encoding="utf-8")
-            temps[-2].write_text(_stats_csv(stat_lines), encoding="utf-8")
-            temps[-1].write_text(P.dumps(record), encoding="utf-8")
+        write_figure(fig, record, spec.id, spec.formats, spec.style, out_dir, min_delta_e, spec.err,
+                     values=_values_csv(drawn_values(spec, panels, record.get("bin_edges"))),
+                     stats=_stats_csv(stat_lines))
     return P.clean(record)
+
+
+def figure_record(project: Project, row: SheetRow, spec: FigureSpec, data: FigureData,
+                  strata: dict | None, drawn: dict, sizes, size, granted: dict | None):
+    """The sidecar of one drawn figure (everything but its preflight and values file), its stats
+    lines, and the smallest colour difference among the colours it used.  A part of a multi-part
+    figure gets the same record as when it is built alone (figkit.compose)."""
+    results_rel = project.config["results"]
+    stat_lines = panel_statistics(spec, data)
+    panel_stats = {}
+    for line in stat_lines:
+        if line["group"] is None:
+            panel_stats[line["panel"]] = {k: line[k] for k in STATS_COLUMNS[2:]}
+
+    panels = []
+    for p, rec in zip(data.panels, drawn["panel_records"]):
+        entry = {"label": p.label, "keys": p.keys, "n": p.n, "n_dropped": p.n_dropped}
+        if data.scales:
+            entry["scale_dropped"] = dict(getattr(p, "scale_dropped", {}) or {})
+        if p.cell is not None:
+            entry["cell"] = list(p.cell)
+        entry["stats"] = panel_stats.get(p.label)
+        entry.update(rec)
+        panels.append(entry)
+
+    from .colour import check_separability, separability
+    sep = separability(drawn["colours"])
+    cautions = list(data.notes) + _dropped_notes(spec, data) + list(drawn["cautions"])
+    # Greyscale is reported, not judged: most qualitative palettes fail it by design.
+    collisions = check_separability(drawn["colours"], spec.style.min_colour_difference)
+    judged = [c for c in collisions if "greyscale" not in c]
+    if judged and spec.style.strict:
+        raise spec.err("colours too alike (strict house style): " + "; ".join(judged))
+    cautions += judged
+    # Greyscale is information, as in preflight ("not judged"): said with its remedy, and
+    # not at all where the figure already carries a non-colour cue for its groups.
+    cue = next((o for o in ("shapes", "dashes") if o in spec.chart.options), None)
+    # lines always carry a marker and a dash pattern per group (charts._line_cues)
+    if not (cue and spec.options.get(cue) == "yes") and spec.chart.name != "lines":
+        remedy = f"; add {cue}=yes under options for a cue that is not colour" if cue else ""
+        cautions += [f"{c}: not judged, but a greyscale print would merge these groups{remedy}"
+                     for c in collisions if "greyscale" in c]
+    if spec.ranges != "common" and len(data.panels) > 1 and spec.chart.name in (
+            "count-bars", "histogram", "density", "shares", "scatter", "hexbins", "box", "violin",
+            "means", "lines"):
+        cautions.append(f"ranges are '{spec.ranges}': panels have their own axis ranges, so "
+                        "compare shapes within a panel, not heights across panels")
+    if spec.trend != "none" and spec.colour and spec.colour in data.levels:
+        cautions.append(f"one {spec.trend} trend per panel is fitted over all '{spec.colour}' "
+                        "groups together; it can differ from every group's own trend "
+                        "(see the per-group lines of the stats file)")
+    if spec.trend == "line":
+        cautions.append("confidence band, slope intervals and the strata F-test treat every "
+                        "row as independent; repeated readings of the same units (sites, "
+                        "patients) make them look more precise than they are")
+    y_scale = (data.scales or {}).get("y", {}).get("scale")
+    if spec.trend == "line" and y_scale == "log10":
+        cautions.append("the straight line is fitted to log10(y): on the data's own scale it is "
+                        "an exponential fit, y = 10^(intercept + slope * x), and its slope is a "
+                        "change in log10 units (a factor of 10^slope per x unit)")
+    elif spec.trend == "line" and y_scale == "signed-log":
+        cautions.append("the straight line is fitted to the symmetric log of y: on the data's "
+                        "own scale it is neither straight nor exponential")
+    if spec.chart.name == "lines" and any("x values repeat" in r.get("line_is", "")
+                                          for r in drawn["panel_records"]):
+        cautions.append("lines join the mean of y at each x (x values repeat); the band is each "
+                        "mean's 95% t interval, treating every row as independent")
+    if spec.chart.name == "means":
+        how = ("percentile bootstrap of the mean (Efron & Tibshirani 1993), "
+               f"{spec.options.get('resamples', 4000)} resamples, seed {spec.options.get('seed', 20261202)}"
+               if spec.options.get("interval") == "bootstrap" else "Student t interval of the mean")
+        cautions.append(f"95% intervals: {how}; they treat every row as independent, so "
+                        "repeated readings of the same units (sites, patients) make them look "
+                        "more precise than they are; they show the mean's uncertainty, not the "
+                        "spread of the data")
+        if (data.scales or {}).get("y", {}).get("scale") == "log10":
+            cautions.append("on a log10 y axis the dot is the mean of log10(y): a geometric "
+                            "mean, not the arithmetic mean of the values")
+    if spec.trend == "loess":
+        cautions.append("LOESS shows a local average; its shape depends on the span "
+                        f"({spec.options.get('span', 0.75)}) and says nothing about uncertainty")
+    record = {
+        "id": spec.id,
+        "size_mm": drawn["size_mm"],
+        "size_preset": spec.size_preset,   # which preset, and from where (row or a default)
+        "dpi": spec.style.dpi,
+        "files": {fmt: f"{spec.id}.{fmt}" for fmt in spec.formats},
+        "inputs": data.inputs,
+        "chart": spec.chart.name,
+        "x": spec.x, "y": spec.y, "colour": spec.colour, "weight": spec.weight,
+        "strata": list(spec.strata),
+        "filter": spec.filter.text if spec.filter is not None else None,
+        "derived": [b.as_record() for b in spec.bandings] or None,
+        "layout": drawn["layout"],
+        "panels": panels,
+        "rows_read": data.n_read, "rows_kept": data.n_kept, "rows_without_stratum": data.n_unassigned,
+        "missing_values": dict(data.missing or {}),   # field -> rows of the panels missing it
+        "strata_test": strata,
+        "scales": data.scales or None,   # axis -> scale, how drawn, values dropped
+        "colours": {"used": drawn["colours"], "min_delta_e": sep.min_delta_e},
+        "min_font_pt": sizes.min_font_pt,
+        "min_line_pt": sizes.min_line_pt,
+        "cautions": [shown(c) for c in cautions],   # they quote data values
+        "style": {"name": spec.style.name, "files": spec.style.digest()},
+        "row_sha256": P.row_sha256(row.cells),
+        # The row with every setting it reads (labels, orders, colours, bands, sizes) and
+        # figkit's version, as the workflow's rerun trigger sees them: preflight compares it.
+        "fingerprint": fingerprint(row, project.config),
+        # Where the settings came from: config.yaml, or the config Snakemake resolved from
+        # it and --configfile / --config / a profile (the fingerprint reads the same).
+        # The job's size as estimated from the file (figkit.jobsize), and what the workflow
+        # granted it (the estimate at the time the workflow was read, grown on retries).
+        "resources": {**size.record(), "granted": granted},
+        "settings": {"from": project.settings_from,
+                     "sha256": P.settings_sha256(project.config.data)},
+        "rebuild": rebuild_command(spec, results_rel),
+        "versions": {**P.versions(), "font": P.font_file(spec.style.rc.get("font.family", ["DejaVu Sans"])[0]
+                                                        if isinstance(spec.style.rc.get("font.family"), list)
+                                                        else spec.style.rc.get("font.family", "DejaVu Sans"))},
+    }
+    if "bin_edges" in drawn:
+        record["bin_edges"] = drawn["bin_edges"]
+        record["bins"] = drawn["bins"]
+    if data.streamed is not None:
+        record["streamed"] = {k: v for k, v in data.streamed.items()
+                              if k not in ("bin_edges", "bin_info")}
+    return record, stat_lines, sep.min_delta_e
+
+
+def write_figure(fig, record: dict, fid: str, formats, style, out_dir: Path, min_delta_e,
+                 err, *, values: str, stats: str) -> None:
+    """Write a figure's files, its values and stats tables and its sidecar (``record``, which
+    gains ``values_file`` and ``preflight``) all together or not at all."""
+    from . import progress
+    meta = json.dumps(P.file_metadata(record), sort_keys=True, separators=(",", ":"))
+    targets = [out_dir / f"{fid}.{fmt}" for fmt in formats]
+    record["values_file"] = f"{fid}.values.csv"
+    targets += [out_dir / record["values_file"], out_dir / f"{fid}.stats.csv", out_dir / f"{fid}.json"]
+    with P.atomic_outputs(targets) as temps:
+        for fmt, tmp in zip(formats, temps):
+            progress.stage(f"writing {fmt.upper()}")
+            _save(fig, tmp, fmt, fid, style.dpi, meta)
+        progress.stage("preflight: reading the files back")
+        # Preflight reads the files just written (still under their temporary names); in a
+        # strict house style a failure aborts here and nothing is renamed into place.
+        from .preflight import preflight
+        pf = preflight({fmt: t for fmt, t in zip(formats, temps)}, sizes_mm=style.sizes,
+                       min_text_pt=style.min_text_pt, min_line_pt=style.min_line_pt,
+                       min_dpi=style.min_dpi, min_delta_e=min_delta_e,
+                       delta_e_threshold=style.min_colour_difference, strict=style.strict,
+                       names=record["files"])
+        record["preflight"] = pf
+        failed = [c for c in pf["checks"] if not c["passed"] and c.get("level") != "warning"]
+        if failed and style.strict:
+            raise err("preflight failed: " + "; ".join(
+                f"{c['name']} ({c['message']})" for c in failed))
+        for c in failed:
+            log.warning("%s: preflight: %s: %s", fid, c["name"], c["message"])
+        progress.stage("writing the sidecar and tables")
+        temps[-3].write_text(values, encoding="utf-8")
+        temps[-2].write_text(stats, encoding="utf-8")
+        temps[-1].write_text(P.dumps(record), encoding="utf-8")
 
 
 def _dropped_notes(spec: FigureSpec, data: FigureData) -> list[str]:
@@ -417,35 +440,35 @@ def _dropped_notes(spec: FigureSpec, data: FigureData) -> list[str]:
     return out
 
 
-def _save(fig, path: Path, fmt: str, spec: FigureSpec, meta: str) -> None:
-    title = f"figkit figure {spec.id}"
+def _save(fig, path: Path, fmt: str, fid: str, dpi: float, meta: str) -> None:
+    title = f"figkit figure {fid}"
     if fmt == "pdf":
-        fig.savefig(path, format="pdf", dpi=spec.style.dpi,
+        fig.savefig(path, format="pdf", dpi=dpi,
                     metadata={"Title": title, "Subject": meta, "Creator": "figkit",
                               "CreationDate": None, "ModDate": None})
     elif fmt == "svg":
-        fig.savefig(path, format="svg", dpi=spec.style.dpi,
+        fig.savefig(path, format="svg", dpi=dpi,
                     metadata={"Title": title, "Description": meta, "Creator": "figkit", "Date": None})
     elif fmt == "png":
         # zlib level 1: a third of the default level's time for ~18% larger files (measured in
         # benchmarks/); PNG is lossless whatever the level.
-        fig.savefig(path, format="png", dpi=spec.style.dpi,
+        fig.savefig(path, format="png", dpi=dpi,
                     metadata={"Title": title, "Software": "figkit", "figkit": meta},
                     pil_kwargs={"compress_level": 1})
     elif fmt == "tiff":
-        fig.savefig(path, format="tiff", dpi=spec.style.dpi,
+        fig.savefig(path, format="tiff", dpi=dpi,
                     pil_kwargs={"compression": "tiff_lzw", "description": meta})
     else:  # pragma: no cover - the schema allows only the four above
         raise FigkitError("unknown output format", value=fmt, allowed=["pdf", "png", "svg", "tiff"])
 
 
-def _stats_csv(lines: list[dict]) -> str:
+def _stats_csv(lines: list[dict], lead: tuple = ()) -> str:
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(STATS_COLUMNS)
+    w.writerow([*lead, *STATS_COLUMNS])
     for line in lines:
         cells = []
-        for col in STATS_COLUMNS:
+        for col in (*lead, *STATS_COLUMNS):
             v = P.clean(line.get(col))
             cells.append("" if v is None else shown(v) if isinstance(v, str) else v)
         w.writerow(cells)

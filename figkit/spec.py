@@ -142,6 +142,7 @@ class FigureSpec:
     root: Path
     cells: dict = field(default_factory=dict)
     letters: bool = False             # letter each panel (case from the house style)
+    letter_from: int = 0              # the first panel's letter: 0 = a (later in a multi-part figure)
     size_preset: dict | None = None   # {name, mm, from, presets_from}: which width and why
 
     @property

@@ -10,6 +10,7 @@ from snakemake.utils import min_version, validate
 import figkit
 import figkit.workflow
 import figkit.workflow.report
+from figkit.compose import build_parts_spec, is_parts, parts_fingerprint, parts_job_size
 from figkit.errors import FigkitError
 from figkit.jobsize import check_ceiling, job_size
 from figkit.sheet import read_sheet, schema_path, validate_config
@@ -48,8 +49,11 @@ def _spec(rid):
     its job then fails with the same line (figkit render checks the ceiling too)."""
     if rid not in _FK_SPECS:
         try:
-            spec = build_spec(FK_BY_ID[rid], FK_CONFIG)
-            check_ceiling(spec, _size(spec), FK_CONFIG.get("max_mem_mb"))
+            if is_parts(FK_BY_ID[rid]):   # a figure made of other rows (figkit.compose)
+                spec = build_parts_spec(FK_BY_ID[rid], FK_CONFIG, FK_ROWS)
+            else:
+                spec = build_spec(FK_BY_ID[rid], FK_CONFIG)
+                check_ceiling(spec, _size(spec), FK_CONFIG.get("max_mem_mb"))
             _FK_SPECS[rid] = spec
         except FigkitError as exc:
             if FK_BY_ID[rid].error is None:
@@ -60,7 +64,17 @@ def _spec(rid):
 
 
 def _size(spec):
-    return job_size(spec, int(FK_CONFIG["stream_above_mb"] * 2 ** 20))
+    limit = int(FK_CONFIG["stream_above_mb"] * 2 ** 20)
+    if hasattr(spec, "parts"):
+        return parts_job_size([job_size(p, limit) for p in spec.parts])
+    return job_size(spec, limit)
+
+
+def _input_files(spec):
+    """A figure's dataset and style files; a figure made of parts reads every part's data."""
+    if hasattr(spec, "parts"):
+        return [*spec.data_paths, *spec.style.files]
+    return [spec.data_path, *spec.style.files]
 
 
 def _resource(name, grow=True):
@@ -82,8 +96,7 @@ def _row_inputs(wildcards):
     spec = _spec(wildcards.id)
     if isinstance(spec, FigkitError):
         return []
-    files = [spec.data_path, *spec.style.files]
-    return [str(p) for p in files if _available(p)]
+    return [str(p) for p in _input_files(spec) if _available(p)]
 
 
 def _available(path) -> bool:
@@ -104,13 +117,14 @@ def _fingerprint(wildcards, files: bool = True):
     if isinstance(spec, FigkitError):
         problem = str(spec)
     elif files:
-        problem = ";".join(str(p) for p in (spec.data_path, *spec.style.files) if not _available(p))
+        problem = ";".join(str(p) for p in _input_files(spec) if not _available(p))
     else:
         problem = ""
     # The problem goes in as a digest: its text may quote a sheet cell, and Snakemake's report
     # embeds params in a script element of its page.
     digest = hashlib.sha256(problem.encode()).hexdigest()[:16] if problem else ""
-    return fingerprint(row, FK_CONFIG) + (f":{digest}" if digest else "")
+    own = parts_fingerprint(row, FK_CONFIG, FK_ROWS) if is_parts(row) else fingerprint(row, FK_CONFIG)
+    return own + (f":{digest}" if digest else "")
 
 
 for _row in FK_ROWS:
