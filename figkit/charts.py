@@ -619,6 +619,10 @@ def prepare_lines(ctx: Context) -> None:
     lo, hi = (min(ends), max(ends)) if ends else (0.0, 1.0)
     ctx.shared["ylim"] = padded_range(lo, hi)
     ctx.shared.update(line_tables=tables, gap_rule=rule, max_step=max_step)
+    ordered = ctx.data.levels.get(spec.x) if spec.x else None
+    if ordered is not None:     # an ordered text x (figkit.data._ordered_positions)
+        ctx.shared["xlevels"] = list(ordered)
+        ctx.shared["xlim"] = (-0.5, len(ordered) - 0.5)
     # Whole-number x (months, years, doses in steps) gets whole-number ticks: "2.5" of a month
     # is no value the data can take.
     ctx.shared["whole_x"] = bool(x_all.size) and spec.options.get("x_scale", "linear") == "linear" \
@@ -663,7 +667,14 @@ def draw_lines(ax, panel: Panel, ctx: Context) -> dict:
                                   "ci_low": None if not np.isfinite(low[i]) else float(low[i]),
                                   "ci_high": None if not np.isfinite(high[i]) else float(high[i])}
                                  for i in range(len(xs))]})
-    if sh.get("whole_x"):
+    ordered = sh.get("xlevels")
+    if ordered is not None:     # category labels at their positions (the layout arranges them)
+        ax.set_xticks(range(len(ordered)))
+        ax.grid(False, axis="x")
+        for g in groups:
+            for pt in g["per_x"]:
+                pt["x_label"] = shown(ordered[int(pt["x"])])
+    elif sh.get("whole_x"):
         from matplotlib.ticker import MaxNLocator
         ax.xaxis.set_major_locator(MaxNLocator(integer=True))
     rec = {"groups": groups, "gap": sh["gap_rule"],

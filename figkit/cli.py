@@ -47,8 +47,9 @@ def _cmd_render(args) -> int:
             failed += 1
             print(f"figkit: error: {exc}", file=sys.stderr)
             continue
-        n = len(rec["panels"])
-        print(f"figkit: {rec['id']}: {n} panel{'' if n == 1 else 's'}, "
+        n = len(rec.get("parts") or rec["panels"])
+        what = "part" if rec.get("parts") else "panel"
+        print(f"figkit: {rec['id']}: {n} {what}{'' if n == 1 else 's'}, "
               f"{rec['size_mm'][0]:.0f} x {rec['size_mm'][1]:.0f} mm -> {out}/{rec['id']}.*")
     return 2 if failed else 0
 
@@ -77,8 +78,13 @@ def _cmd_lint(args) -> int:
     printed = len(settings)
     for note in settings:
         print(f"figkit: caution: {note}", file=sys.stderr)
+    from .compose import build_parts_spec, is_parts
     for row in project.rows:
         try:
+            if row.error is None and is_parts(row):
+                # its parts exist, are chart rows and build; their data is checked on their rows
+                build_parts_spec(row, project.config, project.rows).style.rc
+                continue
             spec = build_spec(row, project.config)
             spec.style.rc                      # parses and checks the style sheet
             notes = load_figure_data(spec, stream_above_bytes=limit).notes

@@ -596,6 +596,8 @@ def compare_sidecars(old: dict, new: dict, *, rel_tol: float = 1e-9) -> list[Cha
             raise FigkitError(f"{name} sidecar must be a mapping", field=name, value=type(sc).__name__)
     if not (_is_number(rel_tol) and rel_tol >= 0):
         raise FigkitError("rel_tol must be a number >= 0", field="rel_tol", value=rel_tol)
+    if old.get("parts") or new.get("parts"):
+        return _by_part(compare_sidecars, old, new, "detail", rel_tol=rel_tol)
     fig = str(new.get("id") or old.get("id") or "?")
     changes: list[Change] = []
 
@@ -731,6 +733,27 @@ def compare_sidecars(old: dict, new: dict, *, rel_tol: float = 1e-9) -> list[Cha
 
 
 _NUMBER = None
+
+
+def _by_part(compare, old: dict, new: dict, level: str, **kw) -> list[Change]:
+    """A figure made of parts (figkit.compose) compared part by part, each part's changes named
+    "part <letter> (<id>): ...", after the page's own (size, layout, inputs, style).  A part
+    that appears or goes is a change at ``level``."""
+    fig = str(new.get("id") or old.get("id") or "?")
+    page = [{k: v for k, v in sc.items() if k not in ("parts", "cautions")} for sc in (old, new)]
+    out = [c for c in compare(*page, **kw) if c.what != "chart" or c.old != c.new]
+    op = {str(p.get("id")): p for p in old.get("parts") or [] if isinstance(p, dict)}
+    np_ = {str(p.get("id")): p for p in new.get("parts") or [] if isinstance(p, dict)}
+    for pid in [*np_, *(p for p in op if p not in np_)]:
+        po, pn = op.get(pid), np_.get(pid)
+        tag = f"part {(pn or po).get('letter') or pid} ({pid})" if (pn or po).get("letter") else f"part {pid}"
+        if po is None or pn is None:
+            out.append(Change(fig, tag, None if po is None else pid, None if pn is None else pid,
+                              "part added" if po is None else "part removed", level))
+            continue
+        out += [Change(fig, f"{tag}: {c.what}", c.old, c.new, c.note, c.level)
+                for c in compare(po, pn, **kw)]
+    return out
 
 
 def caution_kind(text: str) -> str:
@@ -956,6 +979,8 @@ def conclusions(old: dict, new: dict, th: Thresholds = Thresholds()) -> list[Cha
     * a caution appearing or going (numbers masked: the same caution about other numbers is
       numeric detail, see :func:`caution_kind`).
     """
+    if old.get("parts") or new.get("parts"):
+        return _by_part(conclusions, old, new, "conclusion", th=th)
     fig = str(new.get("id") or old.get("id") or "?")
     out: list[Change] = []
     add = lambda what, o, n, note="": out.append(Change(fig, what, o, n, note, "conclusion"))  # noqa: E731

@@ -224,21 +224,64 @@ def render_parts(project: Project, row: SheetRow, granted: dict | None = None) -
     with a ``part`` column) and a sidecar whose ``parts`` hold each part's sidecar fields."""
     import matplotlib as mpl
     mpl.use("Agg", force=True)
+    from . import provenance as P
+    from .render import _stats_csv, _values_csv, log, rebuild_command, write_figure
+
+    pspec = build_parts_spec(row, project.config, project.rows)
+    st = pspec.style
+    with mpl.rc_context(st.rc):
+        page, d = draw_parts(project, pspec)
+        W, H = pspec.width_mm, d["height"]
+        record = {
+            "id": pspec.id,
+            "chart": "parts",
+            "size_mm": [round(W, 3), round(H, 3)],
+            "size_preset": pspec.size_preset,
+            "dpi": st.dpi,
+            "files": {fmt: f"{pspec.id}.{fmt}" for fmt in pspec.formats},
+            "inputs": d["inputs"],
+            "layout": {"lines": [list(line) for line in pspec.lines], "gap_mm": PART_GAP_MM,
+                       "letter_band_mm": round(d["band"], 3), "parts": len(d["parts"]),
+                       "letters": [p["letter"] for p in d["parts"]]},
+            "parts": d["parts"],
+            "panels": [],   # a figure made of parts has its panels in its parts
+            "colours": {"used": d["colours"], "min_delta_e": d["min_delta_e"]},
+            "min_font_pt": d["sizes"].min_font_pt,
+            "min_line_pt": d["sizes"].min_line_pt,
+            "cautions": d["cautions"],
+            "style": {"name": st.name, "files": st.digest()},
+            "row_sha256": P.row_sha256(row.cells),
+            "fingerprint": parts_fingerprint(row, project.config, project.rows),
+            "resources": {**d["job"].record(), "granted": granted},
+            "settings": {"from": project.settings_from,
+                         "sha256": P.settings_sha256(project.config.data)},
+            "rebuild": rebuild_command(pspec, project.config["results"]),
+            "versions": {**P.versions(), "font": P.font_file(_font(st))},
+        }
+        for msg in d["cautions"]:
+            log.warning("%s: %s", pspec.id, msg)
+        write_figure(page, record, pspec.id, pspec.formats, st, project.config.results / "figures",
+                     d["min_delta_e"], pspec.err, values=_values_csv(d["values"], ("part",)),
+                     stats=_stats_csv(d["stat_lines"], ("part",)))
+    return P.clean(record)
+
+
+def draw_parts(project: Project, pspec: PartsSpec):
+    """The page (a matplotlib Figure) of a figure made of parts, and what its sidecar needs:
+    each part's record, stats and values lines, colours, cautions, inputs and sizes.  Call it
+    inside the house style's ``rc_context``."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
     from matplotlib.gridspec import GridSpec
 
     from . import progress
-    from . import provenance as P
     from .checks import enforce_minimums, text_collisions
     from .data import load_figure_data
     from .draw import build_figure
     from .jobsize import job_size
-    from .render import (_stats_csv, _values_csv, drawn_values, figure_record, log,
-                         rebuild_command, strata_comparison, strata_note, write_figure)
+    from .render import drawn_values, figure_record, strata_comparison, strata_note
     from .style import mm_to_in
 
-    pspec = build_parts_spec(row, project.config, project.rows)
     st = pspec.style
     limit = int(project.config["stream_above_mb"] * 2 ** 20)
     sizes = [job_size(s, limit) for s in pspec.parts]
@@ -258,120 +301,89 @@ def render_parts(project: Project, row: SheetRow, granted: dict | None = None) -
     cells = page_cells(pspec.lines, pspec.width_mm)
     band = L.text_mm(st.title_pt + 1) + 0.8 if any(letters) else 0.0
 
-    with mpl.rc_context(st.rc):
-        # Pass 1: each part alone at its cell's width: its natural height, margins and columns.
-        alone = []
-        for spec, data, note in zip(specs, datas, notes):
-            progress.stage(f"laying out part '{spec.id}'")
-            try:
-                _fig, drawn = build_figure(spec, data, note)
-            except FigkitError as exc:
-                raise _part_error(exc, spec, pspec) from None
-            alone.append((drawn["size_mm"][1], drawn["margins"], drawn["layout"]["cols"]))
-        heights, top, bottom, left = [], {}, {}, {}
-        for i, line in enumerate(pspec.lines):
-            members = [k for k, c in enumerate(cells) if c[0] == i]
-            top[i] = max(alone[k][1].top + alone[k][1].title for k in members)
-            bottom[i] = max(alone[k][1].bottom for k in members)
-            inner = max(alone[k][0] - alone[k][1].top - alone[k][1].title - alone[k][1].bottom
-                        for k in members)
-            heights.append(top[i] + inner + bottom[i])
-        for k, (_i, x0, _w) in enumerate(cells):
-            key = round(x0, 2)
-            left[key] = max(left.get(key, 0.0), alone[k][1].left)
-        boxes, page_h = page_boxes(cells, heights, band)
-        if page_h > st.max_height_mm + 1e-9:
-            raise pspec.err(f"the parts need {page_h:.0f} mm of height; the house style allows "
-                            f"{st.max_height_mm:.0f} mm", field="parts", value=pspec.cells["parts"],
-                            allowed="fewer lines of parts, or parts with fewer panel rows")
+    # Pass 1: each part alone at its cell's width: its natural height, margins and columns.
+    alone = []
+    for spec, data, note in zip(specs, datas, notes):
+        progress.stage(f"laying out part '{spec.id}'")
+        try:
+            _fig, drawn = build_figure(spec, data, note)
+        except FigkitError as exc:
+            raise _part_error(exc, spec, pspec) from None
+        alone.append((drawn["size_mm"][1], drawn["margins"], drawn["layout"]["cols"]))
+    heights, top, bottom, left = [], {}, {}, {}
+    for i, line in enumerate(pspec.lines):
+        members = [k for k, c in enumerate(cells) if c[0] == i]
+        top[i] = max(alone[k][1].top + alone[k][1].title for k in members)
+        bottom[i] = max(alone[k][1].bottom for k in members)
+        inner = max(alone[k][0] - alone[k][1].top - alone[k][1].title - alone[k][1].bottom
+                    for k in members)
+        heights.append(top[i] + inner + bottom[i])
+    for k, (_i, x0, _w) in enumerate(cells):
+        key = round(x0, 2)
+        left[key] = max(left.get(key, 0.0), alone[k][1].left)
+    boxes, page_h = page_boxes(cells, heights, band)
+    if page_h > st.max_height_mm + 1e-9:
+        raise pspec.err(f"the parts need {page_h:.0f} mm of height; the house style allows "
+                        f"{st.max_height_mm:.0f} mm", field="parts", value=pspec.cells["parts"],
+                        allowed="fewer lines of parts, or parts with fewer panel rows")
 
-        # Pass 2: the page, each part in a sub-figure of its cell with the line's margins.
-        W, H = pspec.width_mm, page_h
-        page = Figure(figsize=(mm_to_in(W), mm_to_in(H)), dpi=72)
-        FigureCanvasAgg(page)
-        parts_out, stat_lines, values, colours, cautions = [], [], [], [], []
-        min_de = []
-        inputs: list[dict] = []
-        for k, (spec, data, note, box) in enumerate(zip(specs, datas, notes, boxes)):
-            x0, y_top, w, h = box
-            progress.stage(f"drawing part '{spec.id}'")
-            gs = GridSpec(3, 3, figure=page, wspace=0, hspace=0, left=0, right=1, bottom=0, top=1,
-                          width_ratios=[max(x0, 1e-6), w, max(W - x0 - w, 1e-6)],
-                          height_ratios=[max(y_top, 1e-6), h, max(H - y_top - h, 1e-6)])
-            sub = page.add_subfigure(gs[1, 1])
-            line = cells[k][0]
-            floor = L.Margins(left=left[round(x0, 2)], right=0.0, top=top[line], bottom=bottom[line],
-                              title=0.0, hgap=0.0, vgap=0.0)
-            cols = alone[k][2]
-            placed = replace(spec, height_mm=h, columns=cols if len(spec.strata) == 1 else spec.columns)
-            try:
-                _sub, drawn = build_figure(placed, data, note, target=sub, floor=floor)
-                part_sizes = enforce_minimums(sub, st.min_text_pt, st.min_line_pt,
-                                              figure=spec.id, row=spec.row)
-            except FigkitError as exc:
-                raise _part_error(exc, spec, pspec) from None
-            rec, lines_k, de = figure_record(project, pspec.part_rows[k], placed, data, stratas[k],
-                                             drawn, part_sizes, sizes[k], None)
-            letter = letters[k]
-            label = letter or spec.id
-            for ln in lines_k:
-                stat_lines.append({"part": label, **ln})
-            for v in drawn_values(placed, rec["panels"], rec.get("bin_edges")):
-                values.append({"part": label, **v})
-            colours += [c for c in rec["colours"]["used"] if c not in colours]
-            min_de.append(de)
-            cautions += [f"part {label} ({spec.id}): {c}" for c in rec["cautions"]]
-            inputs += [i for i in rec["inputs"] if i not in inputs]
-            for drop in ("files", "rebuild", "settings", "versions", "dpi", "resources"):
-                rec.pop(drop, None)
-            rec["fingerprint"] = fingerprint(pspec.part_rows[k], project.config)
-            parts_out.append({"letter": letter,
-                              "box_mm": [round(v, 3) for v in box],   # x0, top, width, height
-                              **rec})
-            if letter:
-                page.text(x0 / W, 1 - (y_top - band + 0.2) / H, letter, fontsize=st.title_pt + 1,
-                          fontweight="bold", ha="left", va="top")
-        page_sizes = enforce_minimums(page, st.min_text_pt, st.min_line_pt, figure=pspec.id,
-                                      row=pspec.row)
-        clashes = [c for c in text_collisions(page) if any(t in (letters or []) for t in c)]
-        if clashes:
-            cautions.append(f"a part letter touches other text ('{clashes[0][1][:30]}')")
-        # Per vision, the closest pair of colours within any one part (a reader tells groups
-        # apart within a part; the parts' keys are separate).
-        sep_de = {v: min((d[v] for d in min_de if d.get(v) is not None), default=None)
-                  for v in (min_de[0] if min_de else {})}
-        record = {
-            "id": pspec.id,
-            "chart": "parts",
-            "size_mm": [round(W, 3), round(H, 3)],
-            "size_preset": pspec.size_preset,
-            "dpi": st.dpi,
-            "files": {fmt: f"{pspec.id}.{fmt}" for fmt in pspec.formats},
-            "inputs": inputs,
-            "layout": {"lines": [list(line) for line in pspec.lines], "gap_mm": PART_GAP_MM,
-                       "letter_band_mm": round(band, 3), "parts": len(specs),
-                       "letters": [p["letter"] for p in parts_out]},
-            "parts": parts_out,
-            "panels": [],   # a figure made of parts has its panels in its parts
-            "colours": {"used": colours, "min_delta_e": sep_de},
-            "min_font_pt": page_sizes.min_font_pt,
-            "min_line_pt": page_sizes.min_line_pt,
-            "cautions": cautions,
-            "style": {"name": st.name, "files": st.digest()},
-            "row_sha256": P.row_sha256(row.cells),
-            "fingerprint": parts_fingerprint(row, project.config, project.rows),
-            "resources": {**combined.record(), "granted": granted},
-            "settings": {"from": project.settings_from,
-                         "sha256": P.settings_sha256(project.config.data)},
-            "rebuild": rebuild_command(pspec, project.config["results"]),
-            "versions": {**P.versions(), "font": P.font_file(_font(st))},
-        }
-        for msg in cautions:
-            log.warning("%s: %s", pspec.id, msg)
-        write_figure(page, record, pspec.id, pspec.formats, st, project.config.results / "figures",
-                     sep_de, pspec.err, values=_values_csv(values, ("part",)),
-                     stats=_stats_csv(stat_lines, ("part",)))
-    return P.clean(record)
+    # Pass 2: the page, each part in a sub-figure of its cell with the line's margins.
+    W, H = pspec.width_mm, page_h
+    page = Figure(figsize=(mm_to_in(W), mm_to_in(H)), dpi=72)
+    FigureCanvasAgg(page)
+    parts_out, stat_lines, values, colours, cautions = [], [], [], [], []
+    min_de = []
+    inputs: list[dict] = []
+    for k, (spec, data, note, box) in enumerate(zip(specs, datas, notes, boxes)):
+        x0, y_top, w, h = box
+        progress.stage(f"drawing part '{spec.id}'")
+        gs = GridSpec(3, 3, figure=page, wspace=0, hspace=0, left=0, right=1, bottom=0, top=1,
+                      width_ratios=[max(x0, 1e-6), w, max(W - x0 - w, 1e-6)],
+                      height_ratios=[max(y_top, 1e-6), h, max(H - y_top - h, 1e-6)])
+        sub = page.add_subfigure(gs[1, 1])
+        line = cells[k][0]
+        floor = L.Margins(left=left[round(x0, 2)], right=0.0, top=top[line], bottom=bottom[line],
+                          title=0.0, hgap=0.0, vgap=0.0)
+        cols = alone[k][2]
+        placed = replace(spec, height_mm=h, columns=cols if len(spec.strata) == 1 else spec.columns)
+        try:
+            _sub, drawn = build_figure(placed, data, note, target=sub, floor=floor)
+            part_sizes = enforce_minimums(sub, st.min_text_pt, st.min_line_pt,
+                                          figure=spec.id, row=spec.row)
+        except FigkitError as exc:
+            raise _part_error(exc, spec, pspec) from None
+        rec, lines_k, de = figure_record(project, pspec.part_rows[k], placed, data, stratas[k],
+                                         drawn, part_sizes, sizes[k], None)
+        letter = letters[k]
+        label = letter or spec.id
+        for ln in lines_k:
+            stat_lines.append({"part": label, **ln})
+        for v in drawn_values(placed, rec["panels"], rec.get("bin_edges")):
+            values.append({"part": label, **v})
+        colours += [c for c in rec["colours"]["used"] if c not in colours]
+        min_de.append(de)
+        cautions += [f"part {label} ({spec.id}): {c}" for c in rec["cautions"]]
+        inputs += [i for i in rec["inputs"] if i not in inputs]
+        for drop in ("files", "rebuild", "settings", "versions", "dpi", "resources"):
+            rec.pop(drop, None)
+        parts_out.append({"letter": letter,
+                          "box_mm": [round(v, 3) for v in box],   # x0, top, width, height
+                          **rec})
+        if letter:
+            page.text(x0 / W, 1 - (y_top - band + 0.2) / H, letter, fontsize=st.title_pt + 1,
+                      fontweight="bold", ha="left", va="top")
+    page_sizes = enforce_minimums(page, st.min_text_pt, st.min_line_pt, figure=pspec.id,
+                                  row=pspec.row)
+    clashes = [c for c in text_collisions(page) if any(t in (letters or []) for t in c)]
+    if clashes:
+        cautions.append(f"a part letter touches other text ('{clashes[0][1][:30]}')")
+    # Per vision, the closest pair of colours within any one part (a reader tells groups
+    # apart within a part; the parts' keys are separate).
+    sep_de = {v: min((d[v] for d in min_de if d.get(v) is not None), default=None)
+              for v in (min_de[0] if min_de else {})}
+    return page, {"height": H, "band": band, "parts": parts_out, "stat_lines": stat_lines,
+                  "values": values, "colours": colours, "min_delta_e": sep_de,
+                  "cautions": cautions, "inputs": inputs, "sizes": page_sizes, "job": combined}
 
 
 def _font(st) -> str:

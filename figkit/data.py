@@ -250,6 +250,21 @@ class FigureData:
     scales: dict = field(default_factory=dict)    # axis -> scale record (figkit.scales)
 
 
+def _ordered_positions(values: pd.Series, spec: FigureSpec) -> tuple[pd.Series, list]:
+    """An ordered text x of a lines chart (months by name, dose levels, survey rounds) as the
+    position of each value in its order (config.yaml orders:, else natural sort), 0, 1, 2 ...:
+    the line joins neighbours in that order, and a value missing in a group is a gap of two
+    steps, which breaks the line (gap=auto)."""
+    levels = level_order(values, spec.x, spec)
+    position = {v: float(i) for i, v in enumerate(levels)}
+    return values.map(position).astype(float), levels
+
+
+def _first_few(levels: list, n: int = 4) -> str:
+    shown_levels = ", ".join(str(v) for v in levels[:n])
+    return shown_levels + (", ..." if len(levels) > n else "")
+
+
 def _factorized(values: pd.Series, fld: str, spec: FigureSpec) -> tuple[np.ndarray, list]:
     """(code of each row's value in the panel order, the ordered values): one hashing pass."""
     codes, uniques = pd.factorize(values, sort=False)
@@ -435,6 +450,16 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
                        allowed="a filter that keeps some rows" + "".join(
                            "; " + n.split("; ", 1)[1] for n in notes if n.startswith("filter:")))
 
+    ordered_x = None
+    if spec.chart.name == "lines" and spec.x and not pd.api.types.is_numeric_dtype(frame[spec.x]) \
+            and _text_in_numbers(frame, spec.x).size == frame[spec.x].notna().sum():
+        frame = frame.copy()
+        frame[spec.x], ordered_x = _ordered_positions(frame[spec.x], spec)
+        levels[spec.x] = ordered_x
+        if spec.orders.get(spec.x) is None:
+            notes.append(f"x field '{spec.x}' is text with no order under orders: in config.yaml; "
+                         f"its values are joined in natural sort order ({_first_few(ordered_x)}): "
+                         "give the order there if it is not that one")
     for role, need in (("x", spec.chart.x), ("y", spec.chart.y)):
         fld = getattr(spec, role)
         if fld and need:

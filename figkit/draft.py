@@ -57,7 +57,12 @@ def watched_files(project) -> list[Path]:
 def figure_key(project, row) -> tuple:
     """What one figure is drawn from: its fingerprint (row and the settings it reads), its
     data file and its style files as they stand (modification time and size)."""
+    from .compose import build_parts_spec, is_parts, parts_fingerprint
     from .spec import build_spec, fingerprint
+    if row.error is None and is_parts(row):   # a figure made of parts: every part's inputs
+        spec = build_parts_spec(row, project.config, project.rows)
+        return (parts_fingerprint(row, project.config, project.rows),
+                tuple(_stat(p) for p in spec.data_paths), tuple(_stat(p) for p in spec.style.files))
     spec = build_spec(row, project.config)
     return (fingerprint(row, project.config), _stat(spec.data_path),
             tuple(_stat(p) for p in spec.style.files))

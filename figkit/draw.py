@@ -692,7 +692,9 @@ class _Assembly:
         measurers for titles and axis titles, and category labels in their first arrangement."""
         spec, st = self.spec, self.st
         self.category_texts = [shown(v) for v in self.ctx.shared.get("xlevels", [])]
-        self.category_x = bool(self.category_texts) and spec.chart.x == "categorical"
+        # Category labels along x: a categorical x, or a lines chart's ordered text x.
+        self.category_x = bool(self.category_texts) and (spec.chart.x == "categorical" or
+                                                         spec.chart.name == "lines")
         if self.titles:
             self.title_texts = [_panel_title(p, spec) if not spec.grid else "" for p in self.panels]
         if spec.letters and self.titles:

@@ -770,15 +770,22 @@ def _up_to_date_check(sidecar: Path, project, spec) -> dict:
     from .provenance import row_sha256
     from .sheet import find_row
     from .spec import fingerprint
+    from .compose import parts_fingerprint
     record = json.loads(sidecar.read_text(encoding="utf-8"))
     row = find_row(project.rows, spec.id)
     changed = []
-    if not spec.data_path.is_file():
-        changed.append(f"{spec.data_path.name} (missing)")
-    else:
-        now = input_record(spec.data_path, project.config.root)   # hashes the file once
-        if [now] != record.get("inputs"):
+    paths = spec.data_paths if hasattr(spec, "parts") else [spec.data_path]   # parts: every part's
+    now_inputs = []
+    for path in paths:
+        if not path.is_file():
+            changed.append(f"{path.name} (missing)")
+            continue
+        now = input_record(path, project.config.root)   # hashes the file once
+        now_inputs.append(now)
+        if now not in (record.get("inputs") or []):
             changed.append(now["path"])
+    if not changed and len(now_inputs) != len(record.get("inputs") or []):
+        changed.append("its data files (another set)")
     if row_sha256(row.cells) != record.get("row_sha256"):
         changed.append("its sheet row")
     style = record.get("style") or {}
@@ -789,7 +796,8 @@ def _up_to_date_check(sidecar: Path, project, spec) -> dict:
                     if (style.get("files") or {}).get(name) != digest]
     # The fingerprint also holds the row: settings are named only when the row is unchanged.
     if ("its sheet row" not in changed and record.get("fingerprint") is not None
-            and record["fingerprint"] != fingerprint(row, project.config)):
+            and record["fingerprint"] != (parts_fingerprint(row, project.config, project.rows)
+                                          if hasattr(spec, "parts") else fingerprint(row, project.config))):
         changed.append("settings it reads in config.yaml (or figkit's version)")
     return _check("up to date", not changed, changed or None, "inputs and row as built",
                   ("changed since the figure was built: " + ", ".join(changed) + "; rebuild it")

@@ -65,7 +65,7 @@ def drawn_values(spec: FigureSpec, panels: list[dict], edges=None) -> list[dict]
                 for pt in g.get("per_x", []):
                     for m in ("n", "mean", "ci_low", "ci_high"):
                         if pt[m] is not None:
-                            add(pt[m], m, x=pt["x"], group=g["group"])
+                            add(pt[m], m, x=pt.get("x_label", pt["x"]), group=g["group"])
         elif kind == "means":
             for g in p.get("groups", []):
                 for m in ("n", "mean", "sd", "ci_low", "ci_high"):
@@ -197,6 +197,10 @@ def figure(row_or_id, project: Project | str | Path = "."):
     import matplotlib as mpl
     proj = project if isinstance(project, Project) else load_project(project)
     spec = proj.spec(row_or_id) if isinstance(row_or_id, str) else spec_from_cells(row_or_id, proj)
+    if hasattr(spec, "parts"):   # a figure made of parts (figkit.compose)
+        from .compose import draw_parts
+        with mpl.rc_context(spec.style.rc):
+            return draw_parts(proj, spec)[0]
     data = load_figure_data(spec, stream_above_bytes=int(proj.config["stream_above_mb"] * 2 ** 20))
     from .draw import build_figure
     with mpl.rc_context(spec.style.rc):

@@ -326,8 +326,13 @@ class Project:
         return self.config.root
 
     def spec(self, figure_id: str):
+        """The row's FigureSpec, or a figkit.compose.PartsSpec for a row made of parts."""
+        from .compose import build_parts_spec, is_parts
         from .spec import build_spec
-        return build_spec(find_row(self.rows, figure_id), self.config)
+        row = find_row(self.rows, figure_id)
+        if row.error is None and is_parts(row):
+            return build_parts_spec(row, self.config, self.rows)
+        return build_spec(row, self.config)
 
 
 def load_project(root: Path | str = ".", settings: dict | None = None) -> Project:

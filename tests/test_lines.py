@@ -92,3 +92,48 @@ def test_bad_gap_is_one_line_error(project):
         render(load_project(project), "monthly-bad")
     text = str(exc.value)
     assert "\n" not in text and "monthly-bad" in text and "gap" in text and "-2" in text
+
+
+# ---------------------------------------------------------------------------- ordered text x
+
+PENGUIN_SHEET = "\t".join(["id", "dataset", "chart", "x", "y", "colour", "filter"]) + "\n" + "\t".join(
+    ["mass-by-island", "penguins", "lines", "island", "body_mass_g", "species",
+     'not (species == "Adelie" and island == "Biscoe")']) + "\n"
+
+
+def test_ordered_text_x_follows_the_declared_order_and_breaks_at_a_missing_value(tmp_path):
+    """x as ordered text (Palmer penguins' island, Gorman, Williams & Fraser 2014, via the
+    palmerpenguins package), in the order config.yaml declares: per-x means equal a pandas
+    groupby, the values file names each x by its text, and Adelie, left out on Biscoe (the
+    middle of the order), is drawn as two segments, never bridged over the missing island."""
+    from conftest import write_penguin_project
+    from palmerpenguins import load_penguins
+    root = write_penguin_project(tmp_path, PENGUIN_SHEET)
+    order = ["Torgersen", "Biscoe", "Dream"]
+    with open(root / "config" / "config.yaml", "a") as fh:
+        fh.write(f"orders:\n  island: {json.dumps(order)}\n")
+    car = render(load_project(root), "mass-by-island")
+    df = load_penguins().dropna(subset=["body_mass_g"])
+    df = df[~((df.species == "Adelie") & (df.island == "Biscoe"))]
+    ref = df.groupby(["species", "island"])["body_mass_g"].agg(["count", "mean"])   # pandas
+    groups = {g["group"]: g for g in car["panels"][0]["groups"]}
+    for species, g in groups.items():
+        for pt in g["per_x"]:
+            island = order[int(pt["x"])]
+            assert pt["x_label"] == island
+            assert pt["n"] == ref.loc[(species, island), "count"]
+            assert pt["mean"] == pytest.approx(ref.loc[(species, island), "mean"], rel=1e-9)  # 10 digits kept
+    assert [pt["x_label"] for pt in groups["Adelie"]["per_x"]] == ["Torgersen", "Dream"]
+    assert groups["Adelie"]["segments"] == 2
+    values = pd.read_csv(root / "results" / "figures" / "mass-by-island.values.csv")
+    assert set(values["x"]) <= set(order)
+    fig = figure("mass-by-island", root)
+    labels = [t.get_text() for t in fig.axes[0].get_xticklabels()]
+    assert labels == order
+
+
+def test_ordered_text_x_without_a_declared_order_is_cautioned(tmp_path):
+    from conftest import write_penguin_project
+    root = write_penguin_project(tmp_path, PENGUIN_SHEET)
+    car = render(load_project(root), "mass-by-island")
+    assert any("no order under orders:" in c and "island" in c for c in car["cautions"])

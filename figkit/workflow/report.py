@@ -40,7 +40,17 @@ def _cell(text: str) -> str:
 
 
 def numbers_rst(car: dict) -> str:
-    """reStructuredText for one sidecar: a table of panels, the strata comparison, the cautions."""
+    """reStructuredText for one sidecar: a table of panels, the strata comparison, the cautions.
+    A figure made of parts: each part's numbers in turn, under its letter and id."""
+    if car.get("parts"):
+        out = []
+        for part in car["parts"]:
+            tag = f"({part['letter']}) {part.get('id')}" if part.get("letter") else str(part.get("id"))
+            out += [rst_text(f"Part {tag}:"), "", numbers_rst({**part, "cautions": []})]
+        cautions = car.get("cautions") or []
+        if cautions:
+            out += [rst_text("Cautions:"), ""] + [f"* {rst_text(c)}" for c in cautions] + [""]
+        return "\n".join(out)
     panels = car.get("panels") or []
     slopes = any((p.get("trend") or {}).get("kind") == "line" for p in panels)
     head = ["panel", "n", "n dropped"] + (["slope (95% CI)"] if slopes else [])
@@ -96,4 +106,5 @@ def labels(sidecar: Path, figure_id: str) -> dict:
     """The report's results table columns for one figure: id, chart kind, panel count."""
     car = _read(sidecar) or {}
     return {"figure": figure_id, "chart": str(car.get("chart", "")),
-            "panels": str(len(car.get("panels") or []))}
+            "panels": str(len(car.get("panels") or []) or
+                          sum(len(p.get("panels") or []) for p in car.get("parts") or []))}
