@@ -362,6 +362,10 @@ def draw_parts(project: Project, pspec: PartsSpec):
             values.append({"part": label, **v})
         colours += [c for c in rec["colours"]["used"] if c not in colours]
         min_de.append(de)
+        own_style = pspec.part_rows[k].cells.get("style")
+        if own_style and own_style != st.name:   # one figure, one look
+            rec["cautions"].append(f"drawn in the combined figure's house style '{st.name}', "
+                                   f"not its own '{own_style}'")
         cautions += [f"part {label} ({spec.id}): {c}" for c in rec["cautions"]]
         inputs += [i for i in rec["inputs"] if i not in inputs]
         for drop in ("files", "rebuild", "settings", "versions", "dpi", "resources"):

@@ -38,7 +38,7 @@ def _panels(folder: Path) -> dict:
 def test_demo_through_the_generic_cluster_executor(built_demo, tmp_path):
     """`snakemake --profile profiles/cluster-generic` with tests/cluster/submit.sh (jobs started in
     the background under `env -i` with only PATH and HOME) builds every figure; the figures (one per sheet row) go
-    to the queue as at most 3 submissions (grouped, five per group), and every sidecar's per-panel
+    to the queue grouped, five per submission, and every sidecar's per-panel
     numbers equal those of the local build."""
     pytest.importorskip("snakemake_executor_plugin_cluster_generic")
     project = _with_profiles(copy_project(tmp_path / "cluster"))
@@ -52,7 +52,8 @@ def test_demo_through_the_generic_cluster_executor(built_demo, tmp_path):
     remote = _panels(project / "results" / "figures")
     assert len(remote) == _sheet_rows(project) and set(remote) == set(local)
     assert remote == local
-    assert 1 <= len(submitted) <= 3, (submitted, proc.stdout[-2000:])
+    # the profile groups five figure jobs per submission
+    assert 1 <= len(submitted) <= -(-_sheet_rows(project) // 5), (submitted, proc.stdout[-2000:])
     for fid in remote:
         assert (project / "logs" / "figures" / f"{fid}.log").is_file()
 

@@ -32,6 +32,18 @@ def _sidecar(project: Path, fid: str) -> dict:
     return json.loads((project / "results" / "figures" / f"{fid}.json").read_text(encoding="utf-8"))
 
 
+def _reading_order(texts: list[tuple[float, float, str]]) -> list[tuple[float, float, str]]:
+    """(y, x, text) of SVG texts (y downwards) in reading order: lines of text, whose baselines
+    lie within 2 pt of each other, from the top; left to right within a line."""
+    rows: list[list] = []
+    for item in sorted(texts):
+        if rows and item[0] - rows[-1][0][0] < 2.0:
+            rows[-1].append(item)
+        else:
+            rows.append([item])
+    return [item for row in rows for item in sorted(row, key=lambda e: e[1])]
+
+
 def _err(message, **kw):
     return FigkitError(message, **kw)
 
@@ -85,7 +97,7 @@ def test_letters_in_reading_order_from_the_svg(built_demo):
         text = "".join(el.itertext()).strip()
         if re.fullmatch(r"[a-z]", text) and "700" in (el.get("style") or ""):
             found.append((float(el.get("y")), float(el.get("x")), text))
-    found.sort()
+    found = _reading_order(found)
     assert [t for _y, _x, t in found] == ["a", "b", "c"]
     car = _sidecar(built_demo, COMBINED)
     for (y, x, letter), part in zip(found, car["parts"]):
@@ -222,3 +234,35 @@ def test_the_readme_example_row_is_in_the_demo_sheet():
     combined = [r for r in rows if r.get("parts")]
     assert [r["id"] for r in combined] == [COMBINED]
     assert "parts" in (REPO / "config" / "README.md").read_text(encoding="utf-8")
+
+
+PENGUIN_PARTS = "\t".join(["id", "dataset", "chart", "x", "y", "strata", "panel_letters", "style",
+                           "parts"]) + "\n" + "\n".join("\t".join(r) for r in [
+    ["mass-flipper", "penguins", "scatter", "flipper_length_mm", "body_mass_g", "", "", "", ""],
+    ["bill-by-species", "penguins", "box", "sex", "bill_length_mm", "species", "yes", "compact", ""],
+    ["mass-by-island", "penguins", "violin", "island", "body_mass_g", "", "", "", ""],
+    ["penguin-page", "", "", "", "", "", "", "", "mass-flipper, mass-by-island / bill-by-species"],
+]) + "\n"
+
+
+def test_one_letter_sequence_runs_through_lettered_panels(tmp_path):
+    """A part whose own row letters its panels continues the sequence: a and b (one part each),
+    then c d e (the three panels of the next part, one per species of the Palmer penguins,
+    Gorman, Williams & Fraser 2014, via the palmerpenguins package); read back from the SVG, in
+    reading order.  A part
+    with its own house style is drawn in the combined figure's, with a caution."""
+    from conftest import write_penguin_project
+    from figkit.render import load_project, render
+    root = write_penguin_project(tmp_path, PENGUIN_PARTS, formats="[svg, png]")
+    car = render(load_project(root), "penguin-page")
+    assert [p["letter"] for p in car["parts"]] == ["a", "b", None]
+    svg = ET.parse(root / "results" / "figures" / "penguin-page.svg").getroot()
+    texts = []
+    for el in svg.iter("{http://www.w3.org/2000/svg}text"):
+        text = "".join(el.itertext()).strip()
+        if "700" in (el.get("style") or "") and re.match(r"^[a-e](\s|$)", text):
+            texts.append((float(el.get("y")), float(el.get("x")), text.split()[0]))
+    assert [t for _y, _x, t in _reading_order(texts)] == list("abcde")
+    species = [p["label"] for p in car["parts"][2]["panels"]]
+    assert species == ["Adelie", "Chinstrap", "Gentoo"]
+    assert any("house style 'house', not its own 'compact'" in c for c in car["cautions"])
