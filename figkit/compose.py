@@ -277,7 +277,7 @@ def draw_parts(project: Project, pspec: PartsSpec):
     from . import progress
     from .checks import enforce_minimums, text_collisions
     from .data import load_figure_data
-    from .draw import build_figure
+    from .draw import TEXT_EDGE_MM, build_figure
     from .jobsize import job_size
     from .render import drawn_values, figure_record, strata_comparison, strata_note
     from .style import mm_to_in
@@ -299,7 +299,7 @@ def draw_parts(project: Project, pspec: PartsSpec):
     stratas = [strata_comparison(s, d) for s, d in zip(specs, datas)]
     notes = [strata_note(t) if st.strata_note else None for t in stratas]
     cells = page_cells(pspec.lines, pspec.width_mm)
-    band = L.text_mm(st.title_pt + 1) + 0.8 if any(letters) else 0.0
+    band = L.text_mm(st.title_pt + 1) + TEXT_EDGE_MM + 0.4 if any(letters) else 0.0
 
     # Pass 1: each part alone at its cell's width: its natural height, margins and columns.
     alone = []
@@ -374,8 +374,9 @@ def draw_parts(project: Project, pspec: PartsSpec):
                           "box_mm": [round(v, 3) for v in box],   # x0, top, width, height
                           **rec})
         if letter:
-            page.text(x0 / W, 1 - (y_top - band + 0.2) / H, letter, fontsize=st.title_pt + 1,
-                      fontweight="bold", ha="left", va="top")
+            # Kept TEXT_EDGE_MM off the page's edge, as every text of figkit (draw.py).
+            page.text((x0 + TEXT_EDGE_MM) / W, 1 - (y_top - band + TEXT_EDGE_MM) / H, letter,
+                      fontsize=st.title_pt + 1, fontweight="bold", ha="left", va="top")
     page_sizes = enforce_minimums(page, st.min_text_pt, st.min_line_pt, figure=pspec.id,
                                   row=pspec.row)
     clashes = [c for c in text_collisions(page) if any(t in (letters or []) for t in c)]
