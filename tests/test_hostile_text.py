@@ -275,6 +275,12 @@ def _plant(path: Path) -> dict:
 
 def test_demo_with_control_characters_in_categories_writes_well_formed_files(tmp_path):
     project = copy_project(tmp_path / "demo")
+    # Rows whose filter names a category value this test rewrites would rightly keep no rows
+    # (mayfly-means, and the multi-part figure it is a part of): left out here.
+    sheet_path = project / "config" / "figures.tsv"
+    kept = [ln for ln in sheet_path.read_text(encoding="utf-8").splitlines()
+            if not ln.startswith(("mayfly-means\t", "river-overview\t"))]
+    sheet_path.write_text("\n".join(kept) + "\n", encoding="utf-8")
     make_demo_data(project)
     planted = {}
     for name in ("readings.csv", "surveys.csv", "sites.csv"):

@@ -139,8 +139,10 @@ def test_report_shows_each_figures_numbers(built_demo, tmp_path):
     assert set(shown) == set(cars)
     for fid, car in cars.items():
         entry = shown[fid]
-        assert len(entry["rows"]) == len(car["panels"])
-        for row, panel in zip(entry["rows"], car["panels"]):
+        # a figure made of parts shows each part's panels in turn
+        panels = car["panels"] or [q for part in car.get("parts") or [] for q in part["panels"]]
+        assert len(entry["rows"]) == len(panels)
+        for row, panel in zip(entry["rows"], panels):
             assert row[0] == (panel["label"] or "all")
             assert _number(row[1]) == panel["n"] and _number(row[2]) == panel["n_dropped"]
             trend = panel.get("trend") or {}
@@ -156,5 +158,6 @@ def test_report_shows_each_figures_numbers(built_demo, tmp_path):
         assert [" ".join(i.split()) for i in entry["items"]] == [" ".join(c.split()) for c in car["cautions"]]
     head, *rows = page.script_result["table"]
     assert head[:3] == ["figure", "chart", "panels"]
-    assert sorted(r[:3] for r in rows) == sorted([fid, car["chart"], str(len(car["panels"]))]
-                                                 for fid, car in cars.items())
+    assert sorted(r[:3] for r in rows) == sorted(
+        [fid, car["chart"], str(len(car["panels"]) or sum(len(q["panels"]) for q in car.get("parts") or []))]
+        for fid, car in cars.items())
