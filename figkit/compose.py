@@ -177,8 +177,10 @@ def build_parts_spec(row: SheetRow, config: Config, rows: list[SheetRow]) -> Par
             letters=spec.letters and style.letters != "none",
             size_preset={"name": f"part of {fig}", "mm": round(w, 3), "from": f"sheet row {num}",
                          "presets_from": spec.size_preset["presets_from"]}))
-    lettered = c.get("panel_letters", "yes") != "no" or "panel_letters" not in row.given
-    lettered = lettered and style.letters != "none"
+    # Parts are lettered unless the row says panel_letters=no (the column's default, "no", is
+    # for panels of a chart row) or the house style letters nothing.
+    lettered = not ("panel_letters" in row.given and c["panel_letters"] == "no") \
+        and style.letters != "none"
     return PartsSpec(
         id=fig, row=num, lines=lines, width_mm=width, style=style, caption=c.get("caption", ""),
         formats=tuple(config["formats"]), root=config.root, cells=dict(c),
