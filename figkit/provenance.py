@@ -125,21 +125,24 @@ def file_metadata(record: dict) -> dict:
 
 
 def _pdf_literal(data: bytes, start: int) -> str:
-    """Decode a PDF literal string starting just after its '(' (ISO 32000-1, 7.3.4.2)."""
+    """Decode a PDF literal string starting just after its '(' (ISO 32000-1, 7.3.4.2).  A file
+    cut short inside the string ends it there; bytes that are not UTF-16 are replaced."""
     out, depth, i = bytearray(), 1, start
     escapes = {ord("n"): b"\n", ord("r"): b"\r", ord("t"): b"\t", ord("b"): b"\b", ord("f"): b"\f"}
     while i < len(data):
         c = data[i]
         if c == ord("\\"):
+            if i + 1 >= len(data):
+                break
             nxt = data[i + 1]
             if nxt in escapes:
                 out += escapes[nxt]
                 i += 2
             elif ord("0") <= nxt <= ord("7"):
                 j = i + 1
-                while j < i + 4 and ord("0") <= data[j] <= ord("7"):
+                while j < min(i + 4, len(data)) and ord("0") <= data[j] <= ord("7"):
                     j += 1
-                out.append(int(data[i + 1:j], 8))
+                out.append(int(data[i + 1:j], 8) & 0xFF)
                 i = j
             else:
                 out.append(nxt)
@@ -154,42 +157,40 @@ def _pdf_literal(data: bytes, start: int) -> str:
         out.append(c)
         i += 1
     if out[:2] == b"\xfe\xff":
-        return out[2:].decode("utf-16-be")
+        return out[2:].decode("utf-16-be", errors="replace")
     return out.decode("latin-1")
 
 
 def read_file_metadata(path: Path) -> dict:
     """The provenance embedded in a figure file (PNG text chunk, PDF document information, SVG
-    metadata, TIFF description), as a dict.  Works on a file copied away from its project."""
+    metadata, TIFF description), as a dict.  Works on a file copied away from its project.
+    Hostile files (truncated, empty, a folder, a renamed file, an image bomb, an SVG with
+    entities) give one line (figkit.files); nothing but the file itself is read."""
     from .errors import FigkitError
-    path = Path(path)
-    if not path.is_file():
-        raise FigkitError("no such file", value=str(path))
-    suffix = path.suffix.lower()
+    from .files import figure_kind, open_image, parse_svg
+    path, kind = figure_kind(path)
     text = None
-    if suffix in (".png", ".tif", ".tiff"):
-        from PIL import Image
-        with Image.open(path) as im:
-            if suffix == ".png":
-                text = im.text.get("figkit")
-            else:
-                text = im.tag_v2.get(270)
-    elif suffix == ".pdf":
+    if kind in ("png", "tiff"):
+        im = open_image(path)
+        try:
+            with im:
+                text = im.text.get("figkit") if kind == "png" else im.tag_v2.get(270)
+        except (OSError, ValueError, SyntaxError, EOFError) as exc:   # a damaged chunk or tag
+            raise FigkitError(f"image cannot be read: {str(exc)[:120]}", value=path.name) from None
+    elif kind == "pdf":
         data = path.read_bytes()
         at = data.rfind(b"/Subject (")
         if at >= 0:
             text = _pdf_literal(data, at + len(b"/Subject ("))
-    elif suffix == ".svg":
-        import xml.etree.ElementTree as ET
-        ns = {"dc": "http://purl.org/dc/elements/1.1/"}
-        node = ET.parse(path).getroot().find(".//dc:description", ns)
-        text = node.text if node is not None else None
     else:
-        raise FigkitError("not a figure file figkit writes", value=path.name,
-                          allowed=[".pdf", ".png", ".svg", ".tiff"])
-    if not text:
+        node = parse_svg(path).find(".//{http://purl.org/dc/elements/1.1/}description")
+        text = node.text if node is not None else None
+    if not isinstance(text, str) or not text:
         raise FigkitError("this file carries no figkit provenance", value=path.name)
     try:
-        return json.loads(text)
-    except json.JSONDecodeError:
+        meta = json.loads(text)
+    except (ValueError, RecursionError):
         raise FigkitError("this file's figkit provenance is damaged", value=path.name) from None
+    if not isinstance(meta, dict):
+        raise FigkitError("this file's figkit provenance is damaged", value=path.name)
+    return meta
