@@ -67,23 +67,19 @@ def _cmd_lint(args) -> int:
     """Every check a build makes before drawing: the row, the settings, the style sheet, and the
     row against its data (columns exist, numbers are numbers, the filter keeps rows, categories
     are categories), so a sheet that lints clean does not fail at build time for its data."""
-    from .data import load_figure_data
-    from .render import load_project
-    from .spec import build_spec
+    from .render import load_project, prepare
     project = load_project(args.project)
     problems = cautioned = 0
-    limit = int(project.config["stream_above_mb"] * 2 ** 20)
     settings = _settings_notes(project)
     printed = len(settings)
     for note in settings:
         print(f"figkit: caution: {note}", file=sys.stderr)
     for row in project.rows:
         try:
-            spec = build_spec(row, project.config)
-            spec.style.rc                      # parses and checks the style sheet
-            notes = load_figure_data(spec, stream_above_bytes=limit).notes
+            spec, _, data = prepare(project, row)       # the build's own checks before drawing
+            notes = data.notes
             if spec.colour:
-                _lint_palette(spec)
+                _lint_palette(spec, data)
         except FigkitError as exc:
             problems += 1
             print(f"figkit: error: {exc.at(row=row.number, figure=row.id)}", file=sys.stderr)
@@ -121,19 +117,15 @@ def _settings_notes(project) -> list[str]:
     return out
 
 
-def _lint_palette(spec) -> None:
-    """A categorical colour field must not have more values than the palette holds."""
-    import pandas as pd
+def _lint_palette(spec, data) -> None:
+    """A categorical colour field must not have more values than the palette holds (the build
+    finds this when it assigns colours to the levels it read, data.levels)."""
     from .colour import get_palette
-    from .data import read_dataset
     col = spec.colour
-    if col in {b.name for b in spec.bandings}:
-        return
-    values = read_dataset(spec.data_path, [col])[col]
-    if pd.api.types.is_float_dtype(values):
+    if col in {b.name for b in spec.bandings} or col not in data.levels:
         return
     palette = get_palette(spec.style.palette)
-    k = values.nunique()
+    k = len(set(map(str, data.levels[col])) | set(map(str, spec.orders.get(col) or [])))
     if k > len(palette.colours):
         raise spec.err(f"colour field '{col}' has {k} values but palette '{palette.name}' holds "
                        f"{len(palette.colours)}; split by this field into panels instead",

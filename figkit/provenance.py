@@ -10,6 +10,7 @@ import json
 import math
 import os
 import platform
+import re
 import tempfile
 from contextlib import contextmanager
 from pathlib import Path
@@ -94,14 +95,71 @@ def dumps(record: dict) -> str:
     return json.dumps(clean(record), indent=2, ensure_ascii=False, sort_keys=False) + "\n"
 
 
+# Temporary files are named .<target>.<host>~<pid>.<random>.part: a later build can tell those of
+# a process that died on this host (killed mid-write) from those of one still writing.
+_HOST = re.sub(r"[^A-Za-z0-9_-]", "-", platform.node() or "host")[:40]
+_PART = re.compile(r"^\.(?P<target>.+)\.(?P<host>[A-Za-z0-9_-]+)~(?P<pid>\d+)\.[^.]+\.part$")
+# A temporary file in figkit's older naming (no host or process) is removed once this old.
+LEFTOVER_AGE_S = 24 * 3600
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)             # signal 0: existence check only (POSIX kill(2))
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True                 # someone else's process
+    return True
+
+
+def remove_leftovers(folder: Path, names=None) -> list[Path]:
+    """Delete the ``.part`` files a killed build left in ``folder`` (for targets in ``names``
+    only, when given): those of a process of this host that no longer runs, and unmarked ones
+    older than LEFTOVER_AGE_S.  Those of a live process or another host are kept.  Returns the
+    files removed."""
+    import time
+    removed = []
+    try:
+        entries = list(os.scandir(folder))
+    except OSError:
+        return removed
+    for e in entries:
+        if not (e.name.startswith(".") and e.name.endswith(".part")) or not e.is_file(follow_symlinks=False):
+            continue
+        m = _PART.match(e.name)
+        if names is not None and not any(e.name.startswith(f".{n}.") for n in names):
+            continue
+        if m:
+            stale = m["host"] == _HOST and not _alive(int(m["pid"]))
+        else:
+            try:
+                stale = time.time() - e.stat(follow_symlinks=False).st_mtime > LEFTOVER_AGE_S
+            except OSError:
+                stale = False
+        if stale:
+            try:
+                os.unlink(e.path)
+                removed.append(Path(e.path))
+            except OSError:
+                pass
+    return removed
+
+
 @contextmanager
 def atomic_outputs(targets: list[Path]):
-    """Yield temporary paths for ``targets``; rename them into place only if the block succeeds."""
+    """Yield temporary paths for ``targets``; rename them into place only if the block succeeds.
+    The last target is renamed last (figkit puts the sidecar there), so a sidecar never
+    describes files that are not yet in place; leftovers of killed builds for the same targets
+    are removed first (:func:`remove_leftovers`)."""
     temps = []
     try:
+        for folder in dict.fromkeys(t.parent for t in targets):
+            remove_leftovers(folder, [t.name for t in targets if t.parent == folder])
         for t in targets:
             t.parent.mkdir(parents=True, exist_ok=True)
-            fd, tmp = tempfile.mkstemp(prefix=f".{t.name}.", suffix=".part", dir=t.parent)
+            fd, tmp = tempfile.mkstemp(prefix=f".{t.name}.{_HOST}~{os.getpid()}.", suffix=".part",
+                                       dir=t.parent)
             os.close(fd)
             os.chmod(tmp, 0o666 & ~_UMASK)   # mkstemp makes 0600; outputs get the usual mode
             temps.append(Path(tmp))

@@ -224,18 +224,28 @@ def render(project: Project, figure_id: str, granted: dict | None = None) -> dic
         raise exc.at(row=row.number, figure=figure_id) from None
 
 
+def prepare(project: Project, row: SheetRow):
+    """Every check a build makes before it draws, in the build's order: the row and settings
+    (spec), the style sheet, the job's memory ceiling (before reading any data), then the row
+    against its data.  Returns (spec, job size, data).  `figkit lint` runs exactly this, so a
+    row that lints clean does not fail at build time before drawing."""
+    from .jobsize import check_ceiling, job_size
+    spec = build_spec(row, project.config)
+    spec.style.rc                          # parses and checks the style sheet
+    limit = int(project.config["stream_above_mb"] * 2 ** 20)
+    size = job_size(spec, limit)
+    check_ceiling(spec, size, project.config.get("max_mem_mb"))
+    data = load_figure_data(spec, stream_above_bytes=limit)
+    return spec, size, data
+
+
 def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dict:
     import matplotlib as mpl
     mpl.use("Agg", force=True)
     from . import progress
     from .draw import build_figure
-    from .jobsize import check_ceiling, job_size
 
-    spec = build_spec(row, project.config)
-    limit = int(project.config["stream_above_mb"] * 2 ** 20)
-    size = job_size(spec, limit)
-    check_ceiling(spec, size, project.config.get("max_mem_mb"))   # before reading any data
-    data = load_figure_data(spec, stream_above_bytes=limit)
+    spec, size, data = prepare(project, row)
     out_dir = project.config.results / "figures"
     results_rel = project.config["results"]
 
@@ -395,6 +405,11 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
             temps[-3].write_text(_values_csv(drawn_values(spec, panels, record.get("bin_edges"))),
                                  encoding="utf-8")
             temps[-2].write_text(_stats_csv(stat_lines), encoding="utf-8")
+            # Each output's SHA-256: a build killed while renaming leaves files that disagree
+            # with the sidecar (renamed last), which the workflow then rebuilds
+            # (figkit.workflow.recover); equal files give equal hashes, so rebuilds stay identical.
+            record["file_sha256"] = {t.name: P.sha256_file(tmp)
+                                     for t, tmp in zip(targets[:-1], temps[:-1])}
             temps[-1].write_text(P.dumps(record), encoding="utf-8")
     return P.clean(record)
 
