@@ -366,23 +366,52 @@ SCAFFOLD_SHEET = [
 
 
 def _cmd_init(args) -> int:
+    """The folder is made under a temporary name beside the target and renamed into place when
+    complete, so a failed init (bad scale, no space, no permission, Ctrl-C) leaves nothing."""
+    import tempfile
     from .demo import check_scale, write_demo_data
     check_scale(args.scale)         # before anything is written: no half-made folder
     target = Path(args.dir)
-    if target.exists() and any(target.iterdir()):
+    if target.exists() and not target.is_dir():
+        raise FigkitError("a file of that name exists; figkit init makes a folder",
+                          value=str(target), allowed="a new or empty folder")
+    if target.is_dir() and any(target.iterdir()):
         raise FigkitError("folder is not empty; figkit init will not overwrite anything",
                           value=str(target), allowed="a new or empty folder")
-    (target / "config").mkdir(parents=True, exist_ok=True)
-    (target / "Snakefile").write_text(SCAFFOLD_SNAKEFILE, encoding="utf-8")
-    (target / "config" / "config.yaml").write_text(SCAFFOLD_CONFIG, encoding="utf-8")
-    (target / "config" / "figures.tsv").write_text(
-        "".join("\t".join(r) + "\n" for r in SCAFFOLD_SHEET), encoding="utf-8")
-    shutil.copytree(STYLES, target / "styles")
-    shutil.copytree(PROFILES, target / "profiles")
-    written = write_demo_data(target / "data", scale=args.scale)
-    for name in ("sites",):
-        if name in written:
-            written[name].unlink()   # the starter sheet uses readings and surveys only
+    parent = target.absolute().parent
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+        work = Path(tempfile.mkdtemp(prefix=f".{target.name}.init-", dir=parent))
+        from .provenance import _UMASK
+        os.chmod(work, 0o777 & ~_UMASK)    # mkdtemp makes 0700; a project gets the usual mode
+    except OSError as exc:
+        raise FigkitError(f"cannot make the folder ({exc.strerror or type(exc).__name__})",
+                          value=str(target)) from None
+    try:
+        (work / "config").mkdir()
+        (work / "Snakefile").write_text(SCAFFOLD_SNAKEFILE, encoding="utf-8")
+        (work / "config" / "config.yaml").write_text(SCAFFOLD_CONFIG, encoding="utf-8")
+        (work / "config" / "figures.tsv").write_text(
+            "".join("\t".join(r) + "\n" for r in SCAFFOLD_SHEET), encoding="utf-8")
+        shutil.copytree(STYLES, work / "styles")
+        shutil.copytree(PROFILES, work / "profiles")
+        written = write_demo_data(work / "data", scale=args.scale)
+        for name in ("sites",):
+            if name in written:
+                written[name].unlink()   # the starter sheet uses readings and surveys only
+        if target.is_dir():              # an empty folder given: it stays, its contents arrive
+            for item in work.iterdir():
+                os.replace(item, target / item.name)
+            work.rmdir()
+        else:
+            os.replace(work, target)
+    except OSError as exc:
+        shutil.rmtree(work, ignore_errors=True)
+        raise FigkitError(f"cannot write the folder ({exc.strerror or type(exc).__name__}); "
+                          "nothing was left behind", value=str(target)) from None
+    except BaseException:
+        shutil.rmtree(work, ignore_errors=True)
+        raise
     print(f"figkit: started a manuscript folder at {target}\n"
           f"  edit config/figures.tsv (one row per figure) and config/config.yaml, then run:\n"
           f"  cd {target} && snakemake --cores 2\n"
@@ -524,8 +553,17 @@ def main(argv=None) -> int:
         sys.stdout, sys.stderr = saved
 
 
+def _warning_as_caution(message, category, filename, lineno, file=None, line=None) -> None:
+    """A Python warning that reaches the command line is said as a caution of one line: its
+    message, without the file, line and source text of the library that raised it."""
+    text = (str(message).splitlines() or [category.__name__])[0]
+    print(f"figkit: caution: {text}", file=sys.stderr)
+
+
 def _main(argv=None) -> int:
+    import warnings
     logging.basicConfig(format="figkit: caution: %(message)s", level=logging.WARNING)
+    warnings.showwarning = _warning_as_caution
     args = build_parser().parse_args(argv)
     os.environ.setdefault("MPLBACKEND", "Agg")
     try:

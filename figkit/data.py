@@ -548,6 +548,14 @@ def _long_label_notes(spec: FigureSpec, data: "FigureData") -> list[str]:
         elif len(f) > MAX_LABEL_CHARS and f not in spec.labels:
             out.append(f"field name '{short_label(f)}' is longer than {MAX_LABEL_CHARS} characters; "
                        "give it a short label under fields: in config.yaml")
+    for f, values in (data.levels or {}).items():     # tick labels and legend entries
+        long = [v for v in values if len(shown(v)) > MAX_LABEL_CHARS]
+        if long:
+            where = "legend entries" if f == spec.colour and f not in (spec.x, spec.y) else \
+                "category labels"
+            out.append(f"{len(long)} {where} of field '{f}' are longer than {MAX_LABEL_CHARS} "
+                       f"characters and are shown cut short with an ellipsis (the first: "
+                       f"'{short_label(shown(long[0]))}', {len(shown(long[0])):,} characters)")
     cut = [p.label for p in data.panels if p.label.endswith("\u2026") and
            len(p.label) == MAX_LABEL_CHARS]
     if cut:

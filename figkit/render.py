@@ -7,6 +7,8 @@ import csv
 import io
 import json
 import logging
+import re
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -250,7 +252,10 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
     results_rel = project.config["results"]
 
     strata = strata_comparison(spec, data)
-    with mpl.rc_context(spec.style.rc):
+    # Library warnings while drawing and saving (a glyph the font lacks, say) are recorded, not
+    # printed as Python warning text: they become the figure's cautions (sidecar and log).
+    with mpl.rc_context(spec.style.rc), warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
         fig, drawn = build_figure(spec, data, strata_note(strata) if spec.style.strata_note else None)
         progress.stage("checking text and line sizes")
         sizes = enforce_minimums(fig, spec.style.min_text_pt, spec.style.min_line_pt,
@@ -410,8 +415,43 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
             # (figkit.workflow.recover); equal files give equal hashes, so rebuilds stay identical.
             record["file_sha256"] = {t.name: P.sha256_file(tmp)
                                      for t, tmp in zip(targets[:-1], temps[:-1])}
+            for note in warning_notes(caught):
+                log.warning("%s: %s", spec.id, note)
+                record["cautions"].append(shown(note))
             temps[-1].write_text(P.dumps(record), encoding="utf-8")
     return P.clean(record)
+
+
+_GLYPH = re.compile(r"Glyph \d+ \((.+?)\) missing from font\(s\) (.+?)\.?$")
+
+
+def warning_notes(caught) -> list[str]:
+    """Recorded Python warnings as cautions, one per kind: missing glyphs named together with
+    the font (matplotlib draws them as empty boxes), any other warning by its first line."""
+    glyphs, fonts, other = {}, set(), {}
+    for w in caught:
+        text = str(w.message).splitlines()[0] if str(w.message) else w.category.__name__
+        m = _GLYPH.match(text)
+        if m:
+            name = m.group(1)
+            try:    # matplotlib names the character as \N{NAME}
+                char = name.encode("ascii").decode("unicode_escape")
+            except (UnicodeDecodeError, UnicodeEncodeError):
+                char = name
+            glyphs[char] = True
+            fonts.add(m.group(2))
+        else:
+            other.setdefault(text, w.category.__name__)
+    out = []
+    if glyphs:
+        chars = sorted(glyphs)
+        out.append(f"the font ({', '.join(sorted(fonts))}) has no glyph for {len(chars)} "
+                   f"character{'s' if len(chars) != 1 else ''} of the figure's text, drawn as "
+                   f"empty boxes: {' '.join(repr(c) for c in chars[:10])}"
+                   + (" ..." if len(chars) > 10 else "") + "; use a house-style font that has "
+                   "them, or other labels")
+    out += [f"{text} ({kind} while drawing)" for text, kind in other.items()]
+    return out
 
 
 def _dropped_notes(spec: FigureSpec, data: FigureData) -> list[str]:
