@@ -423,8 +423,16 @@ class _Fmt(argparse.RawDescriptionHelpFormatter):
     """Help with the epilog's examples kept on their own lines."""
 
 
+class _Parser(argparse.ArgumentParser):
+    """A mistake on the command line is one line too, like every other mistake: what was wrong
+    and where to read the options (argparse would print the usage block first)."""
+
+    def error(self, message):
+        self.exit(2, f"figkit: error: {self.prog}: {message} (see '{self.prog} --help')\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="figkit", description="Journal-ready small-multiple figures "
+    p = _Parser(prog="figkit", description="Journal-ready small-multiple figures "
                                 "from a figure sheet.", formatter_class=_Fmt,
                                 epilog="examples:\n  figkit init ~/papers/my-paper\n  figkit lint\n"
                                        "  figkit render --id oxygen-temperature\n"

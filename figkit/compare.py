@@ -340,6 +340,15 @@ def _open_image(path: Path, *, full: bool):
     return im, (im.info.get("dpi") or (None,))[0]
 
 
+def load_pixels(im, path: Path) -> None:
+    """Decode an opened image; a file cut short or damaged after its header is one line."""
+    from .files import open_image_error
+    try:
+        im.load()
+    except Exception as exc:  # noqa: BLE001 - Pillow's decoders raise OSError, struct.error, ...
+        raise open_image_error(exc, path) from None
+
+
 def load_for_compare(path: Path | str, file_dpi: float | None, compare_dpi: float,
                      *, cache: Path | None = None) -> Render:
     """Decode a render and reduce it to ``compare_dpi`` by box filtering (each output pixel the
@@ -367,7 +376,7 @@ def load_for_compare(path: Path | str, file_dpi: float | None, compare_dpi: floa
         except OSError:
             pass                                  # a broken cache file: decode again
     with im:
-        im.load()
+        load_pixels(im, path)
         rgb = _flat_rgb(im)
     small = rgb
     if factor > 1.0001:

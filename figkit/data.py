@@ -457,6 +457,9 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
             raise exc.at(row=spec.row, figure=spec.id, field="filter") from None
         frame = frame.loc[mask]
     n_kept = len(frame)
+    if n_read == 0:
+        raise spec.err("dataset file has a header but no rows of data", field="dataset",
+                       value=str(path), allowed="a file with at least one row under its header")
     if n_kept == 0:
         raise spec.err("no rows left after the filter", field="filter", value=spec.filter.text,
                        allowed="a filter that keeps some rows" + "".join(

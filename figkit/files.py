@@ -89,7 +89,7 @@ def open_image(path: Path, *, load: bool = False):
     """A Pillow image of ``path`` (header read; decoded too with ``load``).  Images declaring
     more than MAX_IMAGE_PIXELS are refused before any pixel is decoded; truncated or damaged
     files, and PNG text chunks beyond Pillow's limits, give one line."""
-    from PIL import Image, UnidentifiedImageError
+    from PIL import Image
     path = checked_file(path, "image")
     try:
         with warnings.catch_warnings():
@@ -104,14 +104,22 @@ def open_image(path: Path, *, load: bool = False):
             if load:
                 im.load()
         return im
-    except (Image.DecompressionBombError, Image.DecompressionBombWarning):
-        raise FigkitError(f"image declares more than {MAX_IMAGE_PIXELS:,} pixels (a "
-                          "decompression bomb or not a figure)", value=str(path)) from None
-    except UnidentifiedImageError:
-        raise FigkitError("not an image Pillow can read", value=str(path)) from None
-    except (OSError, ValueError, SyntaxError, EOFError, MemoryError) as exc:
-        first = (str(exc).splitlines() or [type(exc).__name__])[0]
-        raise FigkitError(f"image cannot be read: {first}", value=str(path)) from None
+    except FigkitError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - Pillow raises OSError, struct.error, zlib.error ...
+        raise open_image_error(exc, path) from None
+
+
+def open_image_error(exc: BaseException, path: Path) -> FigkitError:
+    """The one line for an image Pillow could not open or decode."""
+    from PIL import Image, UnidentifiedImageError
+    if isinstance(exc, (Image.DecompressionBombError, Image.DecompressionBombWarning)):
+        return FigkitError(f"image declares more than {MAX_IMAGE_PIXELS:,} pixels (a "
+                           "decompression bomb or not a figure)", value=str(path))
+    if isinstance(exc, UnidentifiedImageError):
+        return FigkitError("not an image Pillow can read", value=str(path))
+    first = (str(exc).splitlines() or [type(exc).__name__])[0][:160]
+    return FigkitError(f"image cannot be read ({type(exc).__name__}: {first})", value=str(path))
 
 
 def parse_svg(path: Path):

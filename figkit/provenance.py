@@ -182,15 +182,37 @@ def file_metadata(record: dict) -> dict:
     return clean(keep)
 
 
+# The provenance text embedded in a file is read up to this many bytes (figkit writes ~2 kB).
+MAX_PROVENANCE_BYTES = 2 ** 20
+# Trailers of a complete file: PDF ends with %%EOF (ISO 32000-1, 7.5.5), PNG with its IEND chunk,
+# length 0, type IEND, CRC AE 42 60 82 (ISO/IEC 15948, 11.2.5).
+_PDF_END = b"%%EOF"
+_PNG_END = b"\x00\x00\x00\x00IEND\xaeB`\x82"
+
+
+def _check_complete(path: Path, kind: str) -> None:
+    """A PDF or PNG cut short (a copy or download that stopped) is refused, not half-read."""
+    from .errors import FigkitError
+    if kind not in ("pdf", "png"):
+        return
+    with open(path, "rb") as fh:
+        fh.seek(max(0, path.stat().st_size - 1024))
+        tail = fh.read().rstrip(b"\r\n\t\f\x00 ")
+    if not tail.endswith(_PDF_END if kind == "pdf" else _PNG_END):
+        raise FigkitError(f"{kind.upper()} file is cut short (it does not end with "
+                          f"{'%%EOF' if kind == 'pdf' else 'the IEND chunk'})", value=path.name)
+
+
 def _pdf_literal(data: bytes, start: int) -> str:
     """Decode a PDF literal string starting just after its '(' (ISO 32000-1, 7.3.4.2).  A file
     cut short inside the string ends it there; bytes that are not UTF-16 are replaced."""
     out, depth, i = bytearray(), 1, start
+    end = min(len(data), start + MAX_PROVENANCE_BYTES)    # figkit's own text is a few kB
     escapes = {ord("n"): b"\n", ord("r"): b"\r", ord("t"): b"\t", ord("b"): b"\b", ord("f"): b"\f"}
-    while i < len(data):
+    while i < end:
         c = data[i]
         if c == ord("\\"):
-            if i + 1 >= len(data):
+            if i + 1 >= end:
                 break
             nxt = data[i + 1]
             if nxt in escapes:
@@ -198,7 +220,7 @@ def _pdf_literal(data: bytes, start: int) -> str:
                 i += 2
             elif ord("0") <= nxt <= ord("7"):
                 j = i + 1
-                while j < min(i + 4, len(data)) and ord("0") <= data[j] <= ord("7"):
+                while j < min(i + 4, end) and ord("0") <= data[j] <= ord("7"):
                     j += 1
                 out.append(int(data[i + 1:j], 8) & 0xFF)
                 i = j
@@ -225,16 +247,17 @@ def read_file_metadata(path: Path) -> dict:
     Hostile files (truncated, empty, a folder, a renamed file, an image bomb, an SVG with
     entities) give one line (figkit.files); nothing but the file itself is read."""
     from .errors import FigkitError
-    from .files import figure_kind, open_image, parse_svg
+    from .files import figure_kind, open_image, open_image_error, parse_svg
     path, kind = figure_kind(path)
+    _check_complete(path, kind)
     text = None
     if kind in ("png", "tiff"):
         im = open_image(path)
         try:
             with im:
                 text = im.text.get("figkit") if kind == "png" else im.tag_v2.get(270)
-        except (OSError, ValueError, SyntaxError, EOFError) as exc:   # a damaged chunk or tag
-            raise FigkitError(f"image cannot be read: {str(exc)[:120]}", value=path.name) from None
+        except Exception as exc:  # noqa: BLE001 - a damaged chunk or tag: Pillow's many types
+            raise open_image_error(exc, path) from None
     elif kind == "pdf":
         data = path.read_bytes()
         at = data.rfind(b"/Subject (")

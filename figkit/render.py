@@ -234,6 +234,18 @@ def prepare(project: Project, row: SheetRow):
     from .jobsize import check_ceiling, job_size
     spec = build_spec(row, project.config)
     spec.style.rc                          # parses and checks the style sheet
+    from .layout import check_height
+    try:
+        st = spec.style        # a panel's least height, as layout.choose_grid requires it
+        check_height(spec.height_mm, st.max_height_mm,
+                     st.panel_min_mm * min(st.panel_aspect, 1.0) * 0.75)
+    except FigkitError as exc:
+        raise exc.at(row=spec.row, figure=spec.id) from None
+    path = spec.data_path          # before anything opens it: a pipe would block the read
+    if not path.is_file():
+        raise spec.err("dataset file not found" if not path.exists() else
+                       "dataset file is not a regular file (a folder, pipe or device)",
+                       field="dataset", value=str(path))
     limit = int(project.config["stream_above_mb"] * 2 ** 20)
     size = job_size(spec, limit)
     check_ceiling(spec, size, project.config.get("max_mem_mb"))
