@@ -200,8 +200,11 @@ def figure(row_or_id, project: Project | str | Path = "."):
     spec = proj.spec(row_or_id) if isinstance(row_or_id, str) else spec_from_cells(row_or_id, proj)
     data = load_figure_data(spec, stream_above_bytes=int(proj.config["stream_above_mb"] * 2 ** 20))
     from .draw import build_figure
-    with mpl.rc_context(spec.style.rc):
+    with mpl.rc_context(spec.style.rc), warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
         fig, _ = build_figure(spec, data, _note_for(spec, data))
+    for note in warning_notes(caught):       # as in a build: a caution, not warning text
+        log.warning("%s: %s", spec.id, note)
     return fig
 
 
