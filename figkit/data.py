@@ -538,6 +538,20 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     return data
 
 
+def colour_range(spec: FigureSpec, data: "FigureData") -> tuple[float, float]:
+    """(lowest, highest) value of a numeric colour field over the rows drawn; a 'centre' option
+    must lie strictly inside (a diverging scale needs both sides).  Called when drawing and, via
+    render.prepare, by lint."""
+    vals = np.concatenate([p.frame[spec.colour].to_numpy(dtype=float) for p in data.panels if p.n]
+                          or [np.array([0.0, 1.0])])
+    lo, hi = float(np.nanmin(vals)), float(np.nanmax(vals))
+    centre = spec.options.get("centre")
+    if centre is not None and not lo < centre < hi:
+        raise spec.err("option 'centre' must lie inside the colour field's range",
+                       field="options", value=centre, allowed=f"between {lo:g} and {hi:g}")
+    return lo, hi
+
+
 def _long_label_notes(spec: FigureSpec, data: "FigureData") -> list[str]:
     """A caution for each axis title or panel title cut to MAX_LABEL_CHARS (spec.short_label)."""
     out = []

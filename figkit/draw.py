@@ -285,17 +285,13 @@ def _colour_setup(spec: FigureSpec, data: FigureData, ctx: Context) -> str | Non
             ctx.colour_title = spec.axis_title(spec.colour)
             return "categories"
         import matplotlib.colors as mcolors
-        vals = np.concatenate([p.frame[spec.colour].to_numpy(dtype=float) for p in data.panels if p.n]
-                              or [np.array([0.0, 1.0])])
-        lo, hi = float(np.nanmin(vals)), float(np.nanmax(vals))
+        from .data import colour_range
+        lo, hi = colour_range(spec, data)       # checks the centre too (also before drawing)
         centre = spec.options.get("centre")
         if centre is None:
             ctx.norm = mcolors.Normalize(lo, hi)
         else:
             # A centre value asks for a diverging scheme, the centre at its neutral middle.
-            if not lo < centre < hi:
-                raise spec.err("option 'centre' must lie inside the colour field's range",
-                               field="options", value=centre, allowed=f"between {lo:g} and {hi:g}")
             from .colour import colormap
             ctx.cmap = colormap(spec.style.diverging)
             ctx.norm = mcolors.TwoSlopeNorm(vcenter=centre, vmin=lo, vmax=hi)

@@ -253,6 +253,9 @@ def prepare(project: Project, row: SheetRow):
     size = job_size(spec, limit)
     check_ceiling(spec, size, project.config.get("max_mem_mb"))
     data = load_figure_data(spec, stream_above_bytes=limit)
+    if spec.colour and spec.colour not in data.levels and all(p.tally is None for p in data.panels):
+        from .data import colour_range
+        colour_range(spec, data)         # a numeric colour field: its 'centre' inside its range
     return spec, size, data
 
 

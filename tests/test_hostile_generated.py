@@ -355,6 +355,9 @@ def bad_rows(rng: random.Random, k: int) -> list[tuple[str, dict]]:
         "y given to a one-field chart": lambda: dict(chart="histogram", x="temp", y="count"),
         "colour field too many values": lambda: dict(chart="scatter", x="temp", y="count",
                                                      colour="many"),
+        "colour centre outside its range": lambda: dict(
+            chart="scatter", x="count", y="count", colour="temp",
+            options=f"centre={rng.choice(['-3', '0', '25', '400', '1e300'])}"),
     }
     names = sorted(makers)
     out = []
