@@ -15,7 +15,7 @@ for incomplete files):
 * **Temporary files** (``.<file>.<host>~<pid>.<random>.part``) of processes that no longer run
   (:func:`figkit.provenance.remove_leftovers`).
 * **Stale locks** (``.snakemake/locks/``): every figkit run records itself
-  (``.snakemake/figkit-runs/<host>~<pid>``, removed when the run ends).  Locks are stale when a
+  (``.snakemake/figkit-runs/<host>~<pid>``, removed when the run ends in any way but a kill).  Locks are stale when a
   recorded run of this host has died and no recorded run is alive and no other Snakemake process
   works in this folder (/proc, Linux); they are then removed.  Otherwise nothing is touched and
   Snakemake's own message (run ``snakemake --unlock``) stands.
@@ -73,6 +73,7 @@ def recover_figures(results: str, ids, formats) -> list[str]:
     folder = Path(results) / "figures"
     for p in remove_leftovers(folder):
         _say(f"removed {p.name}, left by a build that was killed while writing")
+    remove_leftovers(Path(results) / ".fingerprints")   # stamps' .part files: after 24 hours
     rebuilt = []
     if not (SNAKEMAKE_DIR / "incomplete").is_dir():
         return rebuilt
@@ -180,7 +181,9 @@ def recover_locks() -> bool:
     tmp.write_text(json.dumps({"host": _HOST, "pid": os.getpid(), "started": _start_time(os.getpid())}),
                    encoding="utf-8")
     tmp.replace(me)
-    return removed
+    import atexit
+    atexit.register(forget_run)     # any normal end (also "nothing to be done", which skips
+    return removed                  # onsuccess); only a killed run leaves its record
 
 
 def forget_run() -> None:
