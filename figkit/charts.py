@@ -19,7 +19,7 @@ import pandas as pd
 from . import stats
 from .aggregate import HexGrid, padded_range
 from .data import FigureData, Panel
-from .spec import FigureSpec
+from .spec import FigureSpec, label_text
 from .style import pt_to_mm
 from .text import shown
 
@@ -417,7 +417,7 @@ def draw_box(ax, panel: Panel, ctx: Context) -> dict:
         b = stats.box_stats(part[spec.y].to_numpy(dtype=float), whisker=spec.options.get("whisker", 1.5),
                             method=method)
         bxp.append({"med": b.median, "q1": b.q1, "q3": b.q3, "whislo": b.whisker_low,
-                    "whishi": b.whisker_high, "fliers": b.outliers, "label": shown(level), "_pos": i})
+                    "whishi": b.whisker_high, "fliers": b.outliers, "label": label_text(level), "_pos": i})
         groups.append({"group": level, "n": b.n, "q1": b.q1, "median": b.median, "q3": b.q3,
                        "whisker_low": b.whisker_low, "whisker_high": b.whisker_high,
                        "outliers": int(len(b.outliers))})
@@ -694,7 +694,7 @@ def _bandwidth_rule(text: str):
 
 def _category_axis(ax, levels: list) -> None:
     ax.set_xticks(range(len(levels)))
-    ax.set_xticklabels([shown(v) for v in levels])
+    ax.set_xticklabels([label_text(v) for v in levels])
     ax.set_xlim(-0.6, len(levels) - 0.4)
     ax.grid(False, axis="x")
 
@@ -884,9 +884,9 @@ def draw_tiles(ax, panel: Panel, ctx: Context) -> dict:
                 ax.text(j, i, f"{mat[i, j]:.0f}", ha="center", va="center", fontsize=fontsize,
                         color=INK if light else "white", zorder=3))
     ax.set_xticks(range(len(xl)))
-    ax.set_xticklabels([shown(v) for v in xl])
+    ax.set_xticklabels([label_text(v) for v in xl])
     ax.set_yticks(range(len(yl)))
-    ax.set_yticklabels([shown(v) for v in yl])
+    ax.set_yticklabels([label_text(v) for v in yl])
     ax.set_xlim(-0.5, len(xl) - 0.5)
     ax.set_ylim(len(yl) - 0.5, -0.5)   # first level on top, as a table reads
     ax.grid(False)

@@ -68,12 +68,9 @@ def _cmd_lint(args) -> int:
     """Every check a build makes before drawing: the row, the settings, the style sheet, and the
     row against its data (columns exist, numbers are numbers, the filter keeps rows, categories
     are categories), so a sheet that lints clean does not fail at build time for its data."""
-    from .data import load_figure_data
-    from .render import load_project
-    from .spec import build_spec
+    from .render import load_project, prepare
     project = load_project(args.project)
     problems = cautioned = 0
-    limit = int(project.config["stream_above_mb"] * 2 ** 20)
     settings = _settings_notes(project)
     printed = len(settings)
     for note in settings:
@@ -85,11 +82,10 @@ def _cmd_lint(args) -> int:
                 # its parts exist, are chart rows and build; their data is checked on their rows
                 build_parts_spec(row, project.config, project.rows).style.rc
                 continue
-            spec = build_spec(row, project.config)
-            spec.style.rc                      # parses and checks the style sheet
-            notes = load_figure_data(spec, stream_above_bytes=limit).notes
+            spec, _, data = prepare(project, row)       # the build's own checks before drawing
+            notes = data.notes
             if spec.colour:
-                _lint_palette(spec)
+                _lint_palette(spec, data)
         except FigkitError as exc:
             problems += 1
             print(f"figkit: error: {exc.at(row=row.number, figure=row.id)}", file=sys.stderr)
@@ -127,19 +123,15 @@ def _settings_notes(project) -> list[str]:
     return out
 
 
-def _lint_palette(spec) -> None:
-    """A categorical colour field must not have more values than the palette holds."""
-    import pandas as pd
+def _lint_palette(spec, data) -> None:
+    """A categorical colour field must not have more values than the palette holds (the build
+    finds this when it assigns colours to the levels it read, data.levels)."""
     from .colour import get_palette
-    from .data import read_dataset
     col = spec.colour
-    if col in {b.name for b in spec.bandings}:
-        return
-    values = read_dataset(spec.data_path, [col])[col]
-    if pd.api.types.is_float_dtype(values):
+    if col in {b.name for b in spec.bandings} or col not in data.levels:
         return
     palette = get_palette(spec.style.palette)
-    k = values.nunique()
+    k = len(set(map(str, data.levels[col])) | set(map(str, spec.orders.get(col) or [])))
     if k > len(palette.colours):
         raise spec.err(f"colour field '{col}' has {k} values but palette '{palette.name}' holds "
                        f"{len(palette.colours)}; split by this field into panels instead",
@@ -380,23 +372,52 @@ SCAFFOLD_SHEET = [
 
 
 def _cmd_init(args) -> int:
+    """The folder is made under a temporary name beside the target and renamed into place when
+    complete, so a failed init (bad scale, no space, no permission, Ctrl-C) leaves nothing."""
+    import tempfile
     from .demo import check_scale, write_demo_data
     check_scale(args.scale)         # before anything is written: no half-made folder
     target = Path(args.dir)
-    if target.exists() and any(target.iterdir()):
+    if target.exists() and not target.is_dir():
+        raise FigkitError("a file of that name exists; figkit init makes a folder",
+                          value=str(target), allowed="a new or empty folder")
+    if target.is_dir() and any(target.iterdir()):
         raise FigkitError("folder is not empty; figkit init will not overwrite anything",
                           value=str(target), allowed="a new or empty folder")
-    (target / "config").mkdir(parents=True, exist_ok=True)
-    (target / "Snakefile").write_text(SCAFFOLD_SNAKEFILE, encoding="utf-8")
-    (target / "config" / "config.yaml").write_text(SCAFFOLD_CONFIG, encoding="utf-8")
-    (target / "config" / "figures.tsv").write_text(
-        "".join("\t".join(r) + "\n" for r in SCAFFOLD_SHEET), encoding="utf-8")
-    shutil.copytree(STYLES, target / "styles")
-    shutil.copytree(PROFILES, target / "profiles")
-    written = write_demo_data(target / "data", scale=args.scale)
-    for name in ("sites",):
-        if name in written:
-            written[name].unlink()   # the starter sheet uses readings and surveys only
+    parent = target.absolute().parent
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+        work = Path(tempfile.mkdtemp(prefix=f".{target.name}.init-", dir=parent))
+        from .provenance import _UMASK
+        os.chmod(work, 0o777 & ~_UMASK)    # mkdtemp makes 0700; a project gets the usual mode
+    except OSError as exc:
+        raise FigkitError(f"cannot make the folder ({exc.strerror or type(exc).__name__})",
+                          value=str(target)) from None
+    try:
+        (work / "config").mkdir()
+        (work / "Snakefile").write_text(SCAFFOLD_SNAKEFILE, encoding="utf-8")
+        (work / "config" / "config.yaml").write_text(SCAFFOLD_CONFIG, encoding="utf-8")
+        (work / "config" / "figures.tsv").write_text(
+            "".join("\t".join(r) + "\n" for r in SCAFFOLD_SHEET), encoding="utf-8")
+        shutil.copytree(STYLES, work / "styles")
+        shutil.copytree(PROFILES, work / "profiles")
+        written = write_demo_data(work / "data", scale=args.scale)
+        for name in ("sites",):
+            if name in written:
+                written[name].unlink()   # the starter sheet uses readings and surveys only
+        if target.is_dir():              # an empty folder given: it stays, its contents arrive
+            for item in work.iterdir():
+                os.replace(item, target / item.name)
+            work.rmdir()
+        else:
+            os.replace(work, target)
+    except OSError as exc:
+        shutil.rmtree(work, ignore_errors=True)
+        raise FigkitError(f"cannot write the folder ({exc.strerror or type(exc).__name__}); "
+                          "nothing was left behind", value=str(target)) from None
+    except BaseException:
+        shutil.rmtree(work, ignore_errors=True)
+        raise
     print(f"figkit: started a manuscript folder at {target}\n"
           f"  edit config/figures.tsv (one row per figure) and config/config.yaml, then run:\n"
           f"  cd {target} && snakemake --cores 2\n"
@@ -408,8 +429,16 @@ class _Fmt(argparse.RawDescriptionHelpFormatter):
     """Help with the epilog's examples kept on their own lines."""
 
 
+class _Parser(argparse.ArgumentParser):
+    """A mistake on the command line is one line too, like every other mistake: what was wrong
+    and where to read the options (argparse would print the usage block first)."""
+
+    def error(self, message):
+        self.exit(2, f"figkit: error: {self.prog}: {message} (see '{self.prog} --help')\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="figkit", description="Journal-ready small-multiple figures "
+    p = _Parser(prog="figkit", description="Journal-ready small-multiple figures "
                                 "from a figure sheet.", formatter_class=_Fmt,
                                 epilog="examples:\n  figkit init ~/papers/my-paper\n  figkit lint\n"
                                        "  figkit render --id oxygen-temperature\n"
@@ -538,8 +567,17 @@ def main(argv=None) -> int:
         sys.stdout, sys.stderr = saved
 
 
+def _warning_as_caution(message, category, filename, lineno, file=None, line=None) -> None:
+    """A Python warning that reaches the command line is said as a caution of one line: its
+    message, without the file, line and source text of the library that raised it."""
+    text = (str(message).splitlines() or [category.__name__])[0]
+    print(f"figkit: caution: {text}", file=sys.stderr)
+
+
 def _main(argv=None) -> int:
+    import warnings
     logging.basicConfig(format="figkit: caution: %(message)s", level=logging.WARNING)
+    warnings.showwarning = _warning_as_caution
     args = build_parser().parse_args(argv)
     os.environ.setdefault("MPLBACKEND", "Agg")
     try:

@@ -18,7 +18,6 @@ regression gate (:mod:`figkit.gate`).  numpy, Pillow and scipy's ``ndimage`` onl
 """
 from __future__ import annotations
 
-import json
 import math
 import os
 import re
@@ -333,17 +332,20 @@ def _flat_rgb(im):
 
 
 def _open_image(path: Path, *, full: bool):
-    """(header-only or fully decoded image, its dpi from the file or None); one-line errors."""
-    from PIL import Image, UnidentifiedImageError
+    """(header-only or fully decoded image, its dpi from the file or None); one-line errors,
+    image bombs refused before decoding (figkit.files.open_image)."""
+    from .files import open_image
+    im = open_image(path, load=full)
+    return im, (im.info.get("dpi") or (None,))[0]
+
+
+def load_pixels(im, path: Path) -> None:
+    """Decode an opened image; a file cut short or damaged after its header is one line."""
+    from .files import open_image_error
     try:
-        im = Image.open(path)
-        if full:
-            im.load()
-        return im, (im.info.get("dpi") or (None,))[0]
-    except FileNotFoundError:
-        raise FigkitError("image not found", value=str(path)) from None
-    except (UnidentifiedImageError, OSError, ValueError, Image.DecompressionBombError) as exc:
-        raise FigkitError(f"cannot read image {path}: {exc}") from None
+        im.load()
+    except Exception as exc:  # noqa: BLE001 - Pillow's decoders raise OSError, struct.error, ...
+        raise open_image_error(exc, path) from None
 
 
 def load_for_compare(path: Path | str, file_dpi: float | None, compare_dpi: float,
@@ -359,7 +361,9 @@ def load_for_compare(path: Path | str, file_dpi: float | None, compare_dpi: floa
     from PIL import Image
     path = Path(path)
     im, stated = _open_image(path, full=False)
-    dpi = float(file_dpi or stated or compare_dpi)
+    # The first of the sidecar's dpi and the file's that is a positive finite number (a damaged
+    # sidecar or a file stating 0 dpi must not divide by zero or scale by a string).
+    dpi = next((d for d in map(_usable_dpi, (file_dpi, stated)) if d), float(compare_dpi))
     full_shape = (im.height, im.width)
     factor = dpi / compare_dpi
     if cache is not None and cache.is_file():
@@ -371,7 +375,7 @@ def load_for_compare(path: Path | str, file_dpi: float | None, compare_dpi: floa
         except OSError:
             pass                                  # a broken cache file: decode again
     with im:
-        im.load()
+        load_pixels(im, path)
         rgb = _flat_rgb(im)
     small = rgb
     if factor > 1.0001:
@@ -500,6 +504,15 @@ def _show(v) -> str:
     if isinstance(v, dict):
         return "{" + ", ".join(f"{k}: {_show(i)}" for k, i in v.items()) + "}"
     return str(v)
+
+
+def _usable_dpi(value) -> float | None:
+    """A dpi as a float when it is a number from 1 to 100,000, else None."""
+    try:
+        d = float(value)
+    except (TypeError, ValueError):
+        return None
+    return d if math.isfinite(d) and 1 <= d <= 100_000 else None
 
 
 def _is_number(v) -> bool:
@@ -1249,17 +1262,47 @@ def read_sidecars(folder: Path) -> dict[str, tuple[Path, dict]]:
     """Every figure sidecar (``*.json`` holding an id and panels) in ``folder``, by figure id."""
     found: dict[str, tuple[Path, dict]] = {}
     for path in sorted(folder.glob("*.json")):
-        try:
-            data = json.loads(path.read_text(encoding="utf-8"))
-        except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-            raise FigkitError(f"cannot read sidecar {path}: {exc}") from None
+        if not path.is_file():
+            continue     # a folder or pipe named *.json is no sidecar (and reading a pipe hangs)
+        from .files import read_json_object
+        data = read_json_object(path)
         if not (isinstance(data, dict) and isinstance(data.get("id"), str) and "panels" in data):
             continue     # another JSON file, not a figure's sidecar
+        _check_sidecar_shape(path, data)
         if data["id"] in found:
             raise FigkitError(f"two sidecars in {folder} claim figure id '{data['id']}'",
                               value=[found[data["id"]][0].name, path.name])
         found[data["id"]] = (path, data)
     return found
+
+
+# The containers compare walks, by sidecar key (figkit writes these; a hand-edited or damaged
+# sidecar with another shape is refused in one line rather than failing deep inside).
+_SIDECAR_SHAPES = {"panels": list, "inputs": list, "files": dict, "layout": dict, "colours": dict,
+                   "cautions": list, "style": dict, "versions": dict, "size_mm": list}
+
+
+def _check_sidecar_shape(path: Path, data: dict) -> None:
+    for key, kind in _SIDECAR_SHAPES.items():
+        value = data.get(key)
+        if value is not None and not isinstance(value, kind):
+            raise FigkitError(f"sidecar {path} is damaged: '{key}' is not a JSON "
+                              f"{'array' if kind is list else 'object'}", value=type(value).__name__)
+    for key in ("panels", "inputs"):
+        if not all(isinstance(v, dict) for v in data.get(key) or []):
+            raise FigkitError(f"sidecar {path} is damaged: '{key}' holds something other than "
+                              "objects")
+
+
+def _pair_safely(fid: str, old, new, *args):
+    """:func:`_pair`, with a sidecar whose values are not of the kinds figkit writes (a number
+    where a list belongs, deep inside a panel) said in one line naming both sidecars."""
+    try:
+        return _pair(fid, old, new, *args)
+    except (TypeError, KeyError, AttributeError, ValueError, IndexError) as exc:
+        raise FigkitError(f"figure '{fid}': a sidecar holds values figkit does not write "
+                          f"({type(exc).__name__}); rebuild it or compare other builds",
+                          value=[str(old.figures), str(new.figures)]) from None
 
 
 def _png_of(folder: Path, sidecar: dict) -> Path | None:
@@ -1368,7 +1411,7 @@ def compare_builds(old: Build, new: Build, *, thresholds: Thresholds = Threshold
     both = sorted(set(old_sc) & set(new_sc))
     keep = keep_images or out is not None
     with ThreadPoolExecutor(max_workers=workers or min(4, os.cpu_count() or 1)) as pool:
-        report.figures = list(pool.map(lambda fid: _pair(
+        report.figures = list(pool.map(lambda fid: _pair_safely(
             fid, old, new, old_sc[fid][1], new_sc[fid][1], thresholds, tolerance, rel_tol, keep),
             both))
     report.data_changes = _data_changes(old, new, old_sc, new_sc)

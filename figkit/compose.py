@@ -5,7 +5,7 @@ The row's ``parts`` cell lists the parts' ids: commas between the parts of one l
 ``/`` between lines, e.g. ``oxygen-temperature, conductivity-catchments / sensitive-share``.
 
 Each part is an ordinary row of the sheet and builds alone too.  Here it is read by the same
-data pass (``figkit.data.load_figure_data`` on its own spec) and records the same numbers
+data pass (``figkit.render.prepare``: the build's checks and ``load_figure_data``) and records the same numbers
 (``figkit.render.figure_record``); only its width (its cell's), its height (its line's) and its
 house style (the combined row's: one figure, one look) differ.  Its key (legend or colour bar)
 stays with it.
@@ -27,6 +27,7 @@ from __future__ import annotations
 import hashlib
 import json
 import re
+import warnings
 from dataclasses import dataclass, replace
 from pathlib import Path
 
@@ -231,7 +232,9 @@ def render_parts(project: Project, row: SheetRow, granted: dict | None = None) -
 
     pspec = build_parts_spec(row, project.config, project.rows)
     st = pspec.style
-    with mpl.rc_context(st.rc):
+    # Python warnings while drawing and saving become cautions, as for any figure (render).
+    with mpl.rc_context(st.rc), warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
         page, d = draw_parts(project, pspec)
         W, H = pspec.width_mm, d["height"]
         record = {
@@ -264,7 +267,7 @@ def render_parts(project: Project, row: SheetRow, granted: dict | None = None) -
             log.warning("%s: %s", pspec.id, msg)
         write_figure(page, record, pspec.id, pspec.formats, st, project.config.results / "figures",
                      d["min_delta_e"], pspec.err, values=_values_csv(d["values"], ("part",)),
-                     stats=_stats_csv(d["stat_lines"], ("part",)))
+                     stats=_stats_csv(d["stat_lines"], ("part",)), caught=caught)
     return P.clean(record)
 
 
@@ -278,10 +281,9 @@ def draw_parts(project: Project, pspec: PartsSpec):
 
     from . import progress
     from .checks import enforce_minimums, text_collisions
-    from .data import load_figure_data
     from .draw import TEXT_EDGE_MM, build_figure
     from .jobsize import job_size
-    from .render import drawn_values, figure_record, strata_comparison, strata_note
+    from .render import drawn_values, figure_record, prepare, strata_comparison, strata_note
     from .style import mm_to_in
 
     st = pspec.style
@@ -294,9 +296,9 @@ def draw_parts(project: Project, pspec: PartsSpec):
                         f"ceiling max_mem_mb: {ceiling:g}", field="parts", value=pspec.cells["parts"],
                         allowed=f"parts within {ceiling:g} MB together (filters, or a larger ceiling)")
     datas = []
-    for spec in pspec.parts:
-        progress.stage(f"reading the data of part '{spec.id}'")
-        datas.append(load_figure_data(spec, stream_above_bytes=limit))
+    for part_row in pspec.part_rows:   # each part's data through the build's own checks
+        progress.stage(f"reading the data of part '{part_row.id}'")
+        datas.append(prepare(project, part_row)[2])
     specs, letters = _letter_plan(pspec, [len(d.panels) for d in datas])
     stratas = [strata_comparison(s, d) for s, d in zip(specs, datas)]
     notes = [strata_note(t) if st.strata_note else None for t in stratas]

@@ -8,6 +8,7 @@ categorical, else numeric order for numbers, else natural sort ("S2" before "S10
 from __future__ import annotations
 
 import gzip
+import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -56,6 +57,31 @@ def input_record(path: Path, root: Path) -> dict:
     except ValueError:
         rel = path.name
     return {"path": rel, "sha256": sha256_file(path)}
+
+
+def file_identity(path: Path) -> tuple:
+    """What changes whenever a file is written or replaced: device, inode, size, modification
+    and status-change times in ns (the status-change time cannot be set back by a user; POSIX
+    stat(2)).  Equal identities before the read and after the hash mean the hash is of the bytes
+    that were read."""
+    st = os.stat(path)
+    return (st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns, st.st_ctime_ns)
+
+
+def inputs_as_read(spec, path: Path, before: tuple, root: Path) -> list[dict]:
+    """The sidecar's ``inputs``: the file's SHA-256, refused when the file changed since
+    ``before`` (its identity when reading began), so a sidecar never pairs the new data's hash
+    with numbers drawn from the old data."""
+    record = input_record(path, root)
+    try:
+        after = file_identity(path)
+    except OSError:
+        after = None
+    if after != before:
+        raise spec.err("dataset file changed while figkit read it (written or replaced during "
+                       "the build); build again once it is written", field="dataset",
+                       value=str(path))
+    return [record]
 
 
 def read_columns(path: Path) -> list[str]:
@@ -414,6 +440,7 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
         raise spec.err("dataset file not found", field="dataset", value=str(path))
     if should_stream(spec, stream_above_bytes):
         return stream_figure_data(spec, rel_to)
+    before = file_identity(path)
     check_columns(spec, read_columns(path))
     from . import progress
     progress.stage(f"reading {path.name}")
@@ -445,6 +472,9 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
             raise exc.at(row=spec.row, figure=spec.id, field="filter") from None
         frame = frame.loc[mask]
     n_kept = len(frame)
+    if n_read == 0:
+        raise spec.err("dataset file has a header but no rows of data", field="dataset",
+                       value=str(path), allowed="a file with at least one row under its header")
     if n_kept == 0:
         raise spec.err("no rows left after the filter", field="filter", value=spec.filter.text,
                        allowed="a filter that keeps some rows" + "".join(
@@ -522,7 +552,7 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
                             ordered.iloc[bounds[i]:bounds[i + 1]], int(dropped[i]),
                             cells[i] if cells else None))
 
-    data = FigureData(panels, [input_record(path, rel_to or spec.root)], n_read, n_kept, levels,
+    data = FigureData(panels, inputs_as_read(spec, path, before, rel_to or spec.root), n_read, n_kept, levels,
                       n_unassigned, grid_levels)
     data.present = present
     data.notes = notes
@@ -531,6 +561,20 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     apply_scales(spec, data)      # log/signed-log axes: values in the space the axis draws
     data.notes += _empty_panel_notes(spec, data) + _long_label_notes(spec, data)
     return data
+
+
+def colour_range(spec: FigureSpec, data: "FigureData") -> tuple[float, float]:
+    """(lowest, highest) value of a numeric colour field over the rows drawn; a 'centre' option
+    must lie strictly inside (a diverging scale needs both sides).  Called when drawing and, via
+    render.prepare, by lint."""
+    vals = np.concatenate([p.frame[spec.colour].to_numpy(dtype=float) for p in data.panels if p.n]
+                          or [np.array([0.0, 1.0])])
+    lo, hi = float(np.nanmin(vals)), float(np.nanmax(vals))
+    centre = spec.options.get("centre")
+    if centre is not None and not lo < centre < hi:
+        raise spec.err("option 'centre' must lie inside the colour field's range",
+                       field="options", value=centre, allowed=f"between {lo:g} and {hi:g}")
+    return lo, hi
 
 
 def _long_label_notes(spec: FigureSpec, data: "FigureData") -> list[str]:
@@ -546,6 +590,14 @@ def _long_label_notes(spec: FigureSpec, data: "FigureData") -> list[str]:
         elif len(f) > MAX_LABEL_CHARS and f not in spec.labels:
             out.append(f"field name '{short_label(f)}' is longer than {MAX_LABEL_CHARS} characters; "
                        "give it a short label under fields: in config.yaml")
+    for f, values in (data.levels or {}).items():     # tick labels and legend entries
+        long = [v for v in values if len(shown(v)) > MAX_LABEL_CHARS]
+        if long:
+            where = "legend entries" if f == spec.colour and f not in (spec.x, spec.y) else \
+                "category labels"
+            out.append(f"{len(long)} {where} of field '{f}' are longer than {MAX_LABEL_CHARS} "
+                       f"characters and are shown cut short with an ellipsis (the first: "
+                       f"'{short_label(shown(long[0]))}', {len(shown(long[0])):,} characters)")
     cut = [p.label for p in data.panels if p.label.endswith("\u2026") and
            len(p.label) == MAX_LABEL_CHARS]
     if cut:
@@ -673,6 +725,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
     from . import stats
 
     path = spec.data_path
+    before = file_identity(path)
     check_columns(spec, read_columns(path))
     used = list(dict.fromkeys(f for f in (spec.x, spec.y, spec.weight) if f))
     strata = list(spec.strata)
@@ -802,7 +855,7 @@ def stream_figure_data(spec: FigureSpec, rel_to: Path | None = None) -> FigureDa
         panels.append(Panel(label, {k: _json_value(v) for k, v in keys.items()}, frame,
                             tally.n_dropped, cells[i] if cells else None, tally=tally))
     grid_levels = (order(strata[0]), order(strata[1])) if len(strata) == 2 else ()
-    data = FigureData(panels, [input_record(path, rel_to or spec.root)], n_read, n_kept, {},
+    data = FigureData(panels, inputs_as_read(spec, path, before, rel_to or spec.root), n_read, n_kept, {},
                       n_unassigned, grid_levels)
     data.missing = {f: n for f, n in missing.items() if n}
     data.notes = [n for f in ordered for n in order_notes(f, spec.orders[f], sorted(whole[f], key=natural_key))]

@@ -18,7 +18,7 @@ from .charts import DRAWERS, Context
 from .colour import assign_categories
 from .data import FigureData
 from .errors import FigkitError
-from .spec import FigureSpec, short_label
+from .spec import FigureSpec, label_text, short_label
 from .style import mm_to_in, pt_to_mm
 from .text import shown
 
@@ -288,17 +288,13 @@ def _colour_setup(spec: FigureSpec, data: FigureData, ctx: Context) -> str | Non
             ctx.colour_title = spec.axis_title(spec.colour)
             return "categories"
         import matplotlib.colors as mcolors
-        vals = np.concatenate([p.frame[spec.colour].to_numpy(dtype=float) for p in data.panels if p.n]
-                              or [np.array([0.0, 1.0])])
-        lo, hi = float(np.nanmin(vals)), float(np.nanmax(vals))
+        from .data import colour_range
+        lo, hi = colour_range(spec, data)       # checks the centre too (also before drawing)
         centre = spec.options.get("centre")
         if centre is None:
             ctx.norm = mcolors.Normalize(lo, hi)
         else:
             # A centre value asks for a diverging scheme, the centre at its neutral middle.
-            if not lo < centre < hi:
-                raise spec.err("option 'centre' must lie inside the colour field's range",
-                               field="options", value=centre, allowed=f"between {lo:g} and {hi:g}")
             from .colour import colormap
             ctx.cmap = colormap(spec.style.diverging)
             ctx.norm = mcolors.TwoSlopeNorm(vcenter=centre, vmin=lo, vmax=hi)
@@ -342,22 +338,22 @@ def _legend_handles(ctx: Context, spec: FigureSpec) -> list:
         markers, dashes = _line_cues(ctx)
         return [Line2D([], [], color=hexc, linewidth=1.0, linestyle=dashes[level],
                        marker=markers[level], markersize=3.5, markeredgecolor="white",
-                       markeredgewidth=0.3, label=shown(level)) for level, hexc in ctx.colours.items()]
+                       markeredgewidth=0.3, label=label_text(level)) for level, hexc in ctx.colours.items()]
     if spec.chart.name == "means":   # a dot on its interval line, as drawn
         markers = cue_markers(ctx)
         return [Line2D([], [], color=hexc, linewidth=1.0, marker=markers.get(level, "o"),
                        markersize=3.5, markeredgecolor="white", markeredgewidth=0.4,
-                       label=shown(level)) for level, hexc in ctx.colours.items()]
+                       label=label_text(level)) for level, hexc in ctx.colours.items()]
     if spec.chart.name == "scatter":
         markers = cue_markers(ctx)
         return [Line2D([], [], linestyle="none", marker=markers.get(level, "o"), markersize=3.5,
-                       markerfacecolor=hexc, markeredgewidth=0, label=shown(level))
+                       markerfacecolor=hexc, markeredgewidth=0, label=label_text(level))
                 for level, hexc in ctx.colours.items()]
     dashes = cue_dashes(ctx)
     if dashes:
-        return [Line2D([], [], color=hexc, linewidth=1.0, linestyle=dashes[level], label=shown(level))
+        return [Line2D([], [], color=hexc, linewidth=1.0, linestyle=dashes[level], label=label_text(level))
                 for level, hexc in ctx.colours.items()]
-    return [Patch(facecolor=hexc, edgecolor="none", label=shown(level))
+    return [Patch(facecolor=hexc, edgecolor="none", label=label_text(level))
             for level, hexc in ctx.colours.items()]
 
 
@@ -527,7 +523,7 @@ class _Assembly:
         # Tick label sizes guessed for the first choice of grid, before anything is drawn.
         self.est_y = max(_text_width_mm("0000", st.tick_pt), 5.0)
         if spec.chart.y == "categorical":
-            self.est_y = max(_text_width_mm(shown(v), st.tick_pt) for v in data.levels.get(spec.y, ["x"]))
+            self.est_y = max(_text_width_mm(label_text(v), st.tick_pt) for v in data.levels.get(spec.y, ["x"]))
         self.est_x = L.text_mm(st.tick_pt)
         # Lines given to panel titles and axis titles; grown when the measured text needs two.
         self.title_lines = 1 if self.titles else 0
@@ -691,7 +687,7 @@ class _Assembly:
         """The texts whose room the layout measures: panel titles (the letter leads), the
         measurers for titles and axis titles, and category labels in their first arrangement."""
         spec, st = self.spec, self.st
-        self.category_texts = [shown(v) for v in self.ctx.shared.get("xlevels", [])]
+        self.category_texts = [label_text(v) for v in self.ctx.shared.get("xlevels", [])]
         # Category labels along x: a categorical x, or a lines chart's ordered text x.
         self.category_x = bool(self.category_texts) and (spec.chart.x == "categorical" or
                                                          spec.chart.name == "lines")

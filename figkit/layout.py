@@ -49,6 +49,19 @@ def panel_width(cols: int, width_mm: float, m: Margins) -> float:
     return (width_mm - m.left - m.right - (cols - 1) * m.hgap) / cols
 
 
+def check_height(height_mm: float | None, max_height_mm: float, min_height_mm: float = 0.0) -> None:
+    """A row's height_mm within the style's maximum and at least ``min_height_mm`` (one panel's
+    least height; checked before drawing too, so lint finds it; margins come on top)."""
+    if height_mm is not None and height_mm > max_height_mm + 1e-9:
+        raise FigkitError(f"height_mm {height_mm:g} is above the {max_height_mm:.0f} mm the style "
+                          "allows", field="height_mm", value=height_mm,
+                          allowed=f"at most {max_height_mm:.0f}")
+    if height_mm is not None and height_mm < max(min_height_mm, 1e-9):
+        raise FigkitError(f"height_mm {height_mm:g} is below the {min_height_mm:.0f} mm one panel "
+                          "needs (before its titles and axes)", field="height_mm", value=height_mm,
+                          allowed=f"at least {min_height_mm:.0f}, at most {max_height_mm:.0f}")
+
+
 def choose_grid(n: int, width_mm: float, m: Margins, *, min_panel_mm: float, aspect: float,
                 max_height_mm: float, columns: int | None = None,
                 height_mm: float | None = None) -> Grid:
@@ -69,10 +82,7 @@ def choose_grid(n: int, width_mm: float, m: Margins, *, min_panel_mm: float, asp
     for cols in candidates:
         rows = math.ceil(n / cols)   # the smallest row count: no row is ever wholly empty
         pw = panel_width(cols, width_mm, m)
-        if height_mm is not None and height_mm > max_height_mm + 1e-9:
-            raise FigkitError(f"height_mm {height_mm:g} is above the {max_height_mm:.0f} mm the style "
-                              "allows", field="height_mm", value=height_mm,
-                              allowed=f"at most {max_height_mm:.0f}")
+        check_height(height_mm, max_height_mm)
         if height_mm is not None:
             ph = (height_mm - m.top - m.bottom - (rows - 1) * m.vgap) / rows - m.title
         else:

@@ -27,10 +27,8 @@ Limits and where they come from (section and table numbers from memory):
 """
 from __future__ import annotations
 
-import json
 import math
 import re
-import xml.etree.ElementTree as ET
 from pathlib import Path
 
 from .errors import FigkitError
@@ -264,9 +262,16 @@ def _embedded_raster_check(images: list[dict], min_dpi: float, file: str,
 
 
 def _pdf_checks(path: Path, sizes_mm: dict, file: str, min_dpi: float) -> list[dict]:
+    import logging
+    import warnings
+    # pypdf logs and warns about what it repairs in a damaged file; the verdict is ours to say
+    # ("readable"), not a stack of library messages on the user's terminal.
+    logging.getLogger("pypdf").setLevel(logging.ERROR)
     try:
-        facts = pdf_facts(path)
-        images = pdf_images(path)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            facts = pdf_facts(path)
+            images = pdf_images(path)
     except FigkitError:
         raise
     except Exception as exc:  # noqa: BLE001 - any parser failure means the file cannot be judged
@@ -375,7 +380,8 @@ def svg_facts(path: Path) -> dict:
     overrides presentation attributes (SVG 1.1, 6.4).  Strokes that are none, of width 0 or fully
     transparent are not drawn and are ignored; so is content of clip paths, masks and metadata.
     """
-    root = ET.parse(path).getroot()
+    from .files import parse_svg
+    root = parse_svg(path)          # no DTD, no entities, nothing fetched (figkit.files)
     scale = _pt_per_user_unit(root)
     width_px = _length(root.get("width", ""))
     smallest, thinnest, n_text, images, unmeasured = None, None, 0, [], []
@@ -458,11 +464,14 @@ def _image_pixels(el) -> tuple[int, int] | None:
     href = el.get("{http://www.w3.org/1999/xlink}href") or el.get("href") or ""
     if not href.startswith("data:") or ";base64," not in href:
         return None
+    import warnings
     from PIL import Image
     try:
-        with Image.open(io.BytesIO(base64.b64decode(href.split(",", 1)[1]))) as im:
-            return im.width, im.height
-    except (binascii.Error, OSError, ValueError):
+        with warnings.catch_warnings():   # a bomb's size is read from its header, never decoded
+            warnings.simplefilter("ignore", Image.DecompressionBombWarning)
+            with Image.open(io.BytesIO(base64.b64decode(href.split(",", 1)[1]))) as im:
+                return im.width, im.height
+    except (binascii.Error, OSError, ValueError, SyntaxError, Image.DecompressionBombError):
         return None
 
 
@@ -477,9 +486,8 @@ def _svg_checks(path: Path, sizes_mm: dict, min_text_pt: float, min_line_pt: flo
                 file: str, min_dpi: float) -> list[dict]:
     try:
         facts = svg_facts(path)
-    except ET.ParseError as exc:
-        return [_check("readable", False, None, "well-formed SVG", f"cannot read the SVG: {exc}",
-                       file=file)]
+    except FigkitError as exc:      # not well-formed, a DTD, not UTF-8 (figkit.files.parse_svg)
+        return [_check("readable", False, None, "well-formed SVG", exc.message, file=file)]
     out = []
     small = facts["smallest_text"]
     if small is None:
@@ -508,8 +516,8 @@ def _svg_checks(path: Path, sizes_mm: dict, min_text_pt: float, min_line_pt: flo
 
 def raster_facts(path: Path) -> dict:
     """Pixel size, mode and resolution (dpi as Pillow reads pHYs or the TIFF resolution tags)."""
-    from PIL import Image
-    with Image.open(path) as im:
+    from .files import open_image
+    with open_image(path) as im:     # header only; a bomb or a damaged file is one line
         dpi = im.info.get("dpi")
         return {"format": im.format, "mode": im.mode, "width_px": im.width, "height_px": im.height,
                 "dpi": (float(dpi[0]), float(dpi[1])) if dpi else None}
@@ -630,6 +638,13 @@ def preflight(files: dict, *, sizes_mm: dict, min_text_pt: float, min_line_pt: f
                              f"{size / 1e6:.2f} MB" + ("" if size <= max_bytes else
                                                         f", above {max_bytes / 1e6:g} MB"),
                              file=label))
+        from .files import MAX_FIGURE_FILE_BYTES
+        if size == 0 or size > MAX_FIGURE_FILE_BYTES:   # not parsed at all: nothing to judge
+            checks.append(_check("readable", False, size, MAX_FIGURE_FILE_BYTES,
+                                 "empty file" if size == 0 else
+                                 f"above figkit's reading limit of {MAX_FIGURE_FILE_BYTES:,} bytes",
+                                 file=label))
+            continue
         if kind == "pdf":
             checks += _pdf_checks(path, sizes_mm, label, min_dpi)
         elif kind == "svg":
@@ -652,15 +667,13 @@ def preflight_figure(sidecar_path: Path, style, *, strict: bool | None = None,
     """
     from .provenance import read_file_metadata
     sidecar_path = Path(sidecar_path)
-    try:
-        record = json.loads(sidecar_path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise FigkitError("no sidecar; build the figure first", value=str(sidecar_path)) from None
-    except json.JSONDecodeError:
-        raise FigkitError("sidecar is not valid JSON", value=str(sidecar_path)) from None
+    if not sidecar_path.exists():
+        raise FigkitError("no sidecar; build the figure first", value=str(sidecar_path))
+    record = sidecar_record(sidecar_path)
     strict = bool(style.strict) if strict is None else bool(strict)
     folder = sidecar_path.parent
-    files = {fmt: folder / name for fmt, name in (record.get("files") or {}).items()}
+    # File names only: a sidecar naming '../../x' or '/etc/x' must not make preflight read there.
+    files = {fmt: folder / Path(name).name for fmt, name in record["files"].items()}
     result = preflight(files, sizes_mm=style.sizes, min_text_pt=style.min_text_pt,
                        min_line_pt=style.min_line_pt,
                        min_dpi=min_dpi or getattr(style, "min_dpi", None) or DEFAULT_MIN_DPI,
@@ -677,6 +690,24 @@ def preflight_figure(sidecar_path: Path, style, *, strict: bool | None = None,
         if kind:
             checks.append(_record_provenance_check(path, record, read_file_metadata))
     return {"passed": all(c["passed"] for c in checks if c["level"] == "error"), "checks": checks}
+
+
+def sidecar_record(path: Path) -> dict:
+    """A sidecar read for preflight: a JSON object whose ``files`` maps formats to file names
+    and whose ``size_mm`` (when given) is two numbers; one line otherwise."""
+    from .files import read_json_object
+    record = read_json_object(path)
+    files = record.get("files") or {}
+    if not isinstance(files, dict) or not all(isinstance(k, str) and isinstance(v, str) and v
+                                              for k, v in files.items()):
+        raise FigkitError("sidecar's 'files' is not a map of formats to file names",
+                          value=str(path))
+    size = record.get("size_mm")
+    if size is not None and not (isinstance(size, list) and len(size) == 2 and all(
+            isinstance(v, (int, float)) and not isinstance(v, bool) for v in size)):
+        record["size_mm"] = None        # judged by nothing rather than by a damaged record
+    record["files"] = files
+    return record
 
 
 def _record_size_check(path: Path, kind: str, size_mm: list) -> dict:
@@ -746,8 +777,13 @@ def preflight_project(project, ids=(), *, strict: bool = False) -> list[tuple[st
             out.append((fid, {"passed": False, "strict": use_strict, "checks": [
                 _check("built", False, None, None, f"no {sidecar.name}; build the figure first")]}))
             continue
-        result = preflight_figure(sidecar, style, strict=use_strict)
-        result["checks"].append(_up_to_date_check(sidecar, project, spec))
+        try:
+            result = preflight_figure(sidecar, style, strict=use_strict)
+            result["checks"].append(_up_to_date_check(sidecar, project, spec))
+        except FigkitError as exc:      # a damaged sidecar fails this figure, not the command
+            out.append((fid, {"passed": False, "strict": use_strict, "checks": [
+                _check("sidecar readable", False, None, None, exc.message, file=sidecar.name)]}))
+            continue
         result["passed"] = result["passed"] and result["checks"][-1]["passed"]
         result["strict"] = use_strict
         out.append((fid, result))
@@ -771,7 +807,7 @@ def _up_to_date_check(sidecar: Path, project, spec) -> dict:
     from .sheet import find_row
     from .spec import fingerprint
     from .compose import parts_fingerprint
-    record = json.loads(sidecar.read_text(encoding="utf-8"))
+    record = sidecar_record(sidecar)
     row = find_row(project.rows, spec.id)
     changed = []
     paths = spec.data_paths if hasattr(spec, "parts") else [spec.data_path]   # parts: every part's

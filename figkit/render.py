@@ -7,6 +7,8 @@ import csv
 import io
 import json
 import logging
+import re
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -203,8 +205,11 @@ def figure(row_or_id, project: Project | str | Path = "."):
             return draw_parts(proj, spec)[0]
     data = load_figure_data(spec, stream_above_bytes=int(proj.config["stream_above_mb"] * 2 ** 20))
     from .draw import build_figure
-    with mpl.rc_context(spec.style.rc):
+    with mpl.rc_context(spec.style.rc), warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
         fig, _ = build_figure(spec, data, _note_for(spec, data))
+    for note in warning_notes(caught):       # as in a build: a caution, not warning text
+        log.warning("%s: %s", spec.id, note)
     return fig
 
 
@@ -233,22 +238,50 @@ def render(project: Project, figure_id: str, granted: dict | None = None) -> dic
         raise exc.at(row=row.number, figure=figure_id) from None
 
 
+def prepare(project: Project, row: SheetRow):
+    """Every check a build makes before it draws, in the build's order: the row and settings
+    (spec), the style sheet, the job's memory ceiling (before reading any data), then the row
+    against its data.  Returns (spec, job size, data).  `figkit lint` runs exactly this, so a
+    row that lints clean does not fail at build time before drawing."""
+    from .jobsize import check_ceiling, job_size
+    spec = build_spec(row, project.config)
+    spec.style.rc                          # parses and checks the style sheet
+    from .layout import check_height
+    try:
+        st = spec.style        # a panel's least height, as layout.choose_grid requires it
+        check_height(spec.height_mm, st.max_height_mm,
+                     st.panel_min_mm * min(st.panel_aspect, 1.0) * 0.75)
+    except FigkitError as exc:
+        raise exc.at(row=spec.row, figure=spec.id) from None
+    path = spec.data_path          # before anything opens it: a pipe would block the read
+    if not path.is_file():
+        raise spec.err("dataset file not found" if not path.exists() else
+                       "dataset file is not a regular file (a folder, pipe or device)",
+                       field="dataset", value=str(path))
+    limit = int(project.config["stream_above_mb"] * 2 ** 20)
+    size = job_size(spec, limit)
+    check_ceiling(spec, size, project.config.get("max_mem_mb"))
+    data = load_figure_data(spec, stream_above_bytes=limit)
+    if spec.colour and spec.colour not in data.levels and all(p.tally is None for p in data.panels):
+        from .data import colour_range
+        colour_range(spec, data)         # a numeric colour field: its 'centre' inside its range
+    return spec, size, data
+
+
 def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dict:
     import matplotlib as mpl
     mpl.use("Agg", force=True)
     from . import progress
     from .draw import build_figure
-    from .jobsize import check_ceiling, job_size
 
-    spec = build_spec(row, project.config)
-    limit = int(project.config["stream_above_mb"] * 2 ** 20)
-    size = job_size(spec, limit)
-    check_ceiling(spec, size, project.config.get("max_mem_mb"))   # before reading any data
-    data = load_figure_data(spec, stream_above_bytes=limit)
+    spec, size, data = prepare(project, row)
     out_dir = project.config.results / "figures"
 
     strata = strata_comparison(spec, data)
-    with mpl.rc_context(spec.style.rc):
+    # Library warnings while drawing and saving (a glyph the font lacks, say) are recorded, not
+    # printed as Python warning text: they become the figure's cautions (sidecar and log).
+    with mpl.rc_context(spec.style.rc), warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
         fig, drawn = build_figure(spec, data, strata_note(strata) if spec.style.strata_note else None)
         progress.stage("checking text and line sizes")
         sizes = enforce_minimums(fig, spec.style.min_text_pt, spec.style.min_line_pt,
@@ -260,7 +293,7 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
             log.warning("%s: %s", spec.id, msg)
         write_figure(fig, record, spec.id, spec.formats, spec.style, out_dir, min_delta_e, spec.err,
                      values=_values_csv(drawn_values(spec, panels, record.get("bin_edges"))),
-                     stats=_stats_csv(stat_lines))
+                     stats=_stats_csv(stat_lines), caught=caught)
     return P.clean(record)
 
 
@@ -392,9 +425,10 @@ def figure_record(project: Project, row: SheetRow, spec: FigureSpec, data: Figur
 
 
 def write_figure(fig, record: dict, fid: str, formats, style, out_dir: Path, min_delta_e,
-                 err, *, values: str, stats: str) -> None:
+                 err, *, values: str, stats: str, caught: list | None = None) -> None:
     """Write a figure's files, its values and stats tables and its sidecar (``record``, which
-    gains ``values_file`` and ``preflight``) all together or not at all."""
+    gains ``values_file``, ``preflight`` and ``file_sha256``) all together or not at all.
+    ``caught``: the Python warnings recorded while drawing and saving, added as cautions."""
     from . import progress
     meta = json.dumps(P.file_metadata(record), sort_keys=True, separators=(",", ":"))
     targets = [out_dir / f"{fid}.{fmt}" for fmt in formats]
@@ -423,6 +457,14 @@ def write_figure(fig, record: dict, fid: str, formats, style, out_dir: Path, min
         progress.stage("writing the sidecar and tables")
         temps[-3].write_text(values, encoding="utf-8")
         temps[-2].write_text(stats, encoding="utf-8")
+        # Each output's SHA-256: a build killed while renaming leaves files that disagree
+        # with the sidecar (renamed last), which the workflow then rebuilds
+        # (figkit.workflow.recover); equal files give equal hashes, so rebuilds stay identical.
+        record["file_sha256"] = {t.name: P.sha256_file(tmp)
+                                 for t, tmp in zip(targets[:-1], temps[:-1])}
+        for note in warning_notes(caught or []):
+            log.warning("%s: %s", fid, note)
+            record["cautions"].append(shown(note))
         temps[-1].write_text(P.dumps(record), encoding="utf-8")
 
 
@@ -477,3 +519,35 @@ def _stats_csv(lines: list[dict], lead: tuple = ()) -> str:
             cells.append("" if v is None else shown(v) if isinstance(v, str) else v)
         w.writerow(cells)
     return buf.getvalue()
+
+
+_GLYPH = re.compile(r"Glyph \d+ \((.+?)\) missing from font\(s\) (.+?)\.?$")
+
+
+def warning_notes(caught) -> list[str]:
+    """Recorded Python warnings as cautions, one per kind: missing glyphs named together with
+    the font (matplotlib draws them as empty boxes), any other warning by its first line."""
+    glyphs, fonts, other = {}, set(), {}
+    for w in caught:
+        text = str(w.message).splitlines()[0] if str(w.message) else w.category.__name__
+        m = _GLYPH.match(text)
+        if m:
+            name = m.group(1)
+            try:    # matplotlib names the character as \N{NAME}
+                char = name.encode("ascii").decode("unicode_escape")
+            except (UnicodeDecodeError, UnicodeEncodeError):
+                char = name
+            glyphs[char] = True
+            fonts.add(m.group(2))
+        else:
+            other.setdefault(text, w.category.__name__)
+    out = []
+    if glyphs:
+        chars = sorted(glyphs)
+        out.append(f"the font ({', '.join(sorted(fonts))}) has no glyph for {len(chars)} "
+                   f"character{'s' if len(chars) != 1 else ''} of the figure's text, drawn as "
+                   f"empty boxes: {' '.join(repr(c) for c in chars[:10])}"
+                   + (" ..." if len(chars) > 10 else "") + "; use a house-style font that has "
+                   "them, or other labels")
+    out += [f"{text} ({kind} while drawing)" for text, kind in other.items()]
+    return out

@@ -236,7 +236,7 @@ def read_sheet(path: Path | str) -> list[SheetRow]:
     if not path.is_file():
         raise FigkitError(f"figure sheet not found: {path}")
     lines = _sheet_records(path)
-    if not lines:
+    if not lines or not any(h.strip() for h in lines[0]):   # nothing, or a blank first line
         raise FigkitError(f"figure sheet {path} is empty; it needs a header row")
     header = [h.strip() for h in lines[0]]
     _refuse_other_separators(path, header)

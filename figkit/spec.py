@@ -184,6 +184,14 @@ def short_label(text) -> str:
     return text if len(text) <= MAX_LABEL_CHARS else text[:MAX_LABEL_CHARS - 1] + "\u2026"
 
 
+def label_text(value) -> str:
+    """A data value as drawn in a tick label, legend entry or panel title: control characters
+    escaped (figkit.text.shown), then cut to MAX_LABEL_CHARS with an ellipsis (cautioned by
+    figkit.data)."""
+    from .text import shown
+    return short_label(shown(value))
+
+
 def _parse_options(text: str | None, kind: ChartKind, err) -> dict:
     opts = {k: spec[1] for k, spec in kind.options.items()}
     if not text:

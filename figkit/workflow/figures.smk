@@ -9,6 +9,7 @@ from snakemake.utils import min_version, validate
 
 import figkit
 import figkit.workflow
+import figkit.workflow.recover
 import figkit.workflow.report
 from figkit.compose import build_parts_spec, is_parts, parts_fingerprint, parts_job_size
 from figkit.errors import FigkitError
@@ -176,6 +177,8 @@ def _write_stamps() -> None:
     if _FK_STAMPS_WRITTEN:
         return
     _FK_STAMPS_WRITTEN.append(True)
+    if workflow.is_main_process:   # after a killed build: markers, leftovers, stale locks
+        figkit.workflow.recover.recover(FK_RESULTS, FK_TARGETS, FK_FORMATS)
     for rid in FK_TARGETS:
         if _stamp_is_current(rid):
             continue
@@ -246,7 +249,9 @@ rule figure:
 
 onsuccess:
     figkit.workflow.stop_rate_timers()
+    figkit.workflow.recover.forget_run()
 
 
 onerror:
     figkit.workflow.stop_rate_timers()
+    figkit.workflow.recover.forget_run()
