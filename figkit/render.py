@@ -371,10 +371,12 @@ def _render(project: Project, row: SheetRow, granted: dict | None = None) -> dic
         record["values_file"] = f"{spec.id}.values.csv"
         targets += [out_dir / record["values_file"], out_dir / f"{spec.id}.stats.csv",
                     out_dir / f"{spec.id}.json"]
+        from .rasters import shared_rasters
         with P.atomic_outputs(targets) as temps:
-            for fmt, tmp in zip(spec.formats, temps):
-                progress.stage(f"writing {fmt.upper()}")
-                _save(fig, tmp, fmt, spec, meta)
+            with shared_rasters(fig):      # each dense layer painted once for PDF and SVG
+                for fmt, tmp in zip(spec.formats, temps):
+                    progress.stage(f"writing {fmt.upper()}")
+                    _save(fig, tmp, fmt, spec, meta)
             progress.stage("preflight: reading the files back")
             # Preflight reads the files just written (still under their temporary names); in a
             # strict house style a failure aborts here and nothing is renamed into place.
