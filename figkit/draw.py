@@ -14,7 +14,7 @@ from dataclasses import replace
 import numpy as np
 
 from . import layout as L
-from .charts import DRAWERS, Context
+from .charts import DRAWERS, Context, set_limits
 from .colour import assign_categories
 from .data import FigureData
 from .errors import FigkitError
@@ -645,12 +645,12 @@ class _Assembly:
                 ax.autoscale_view()
                 tops.append(ax.get_ylim()[1])
             for ax, top in zip(axes, tops):
-                ax.set_ylim(0, max(tops) if self.share_y else top)
+                set_limits(ax, y=(0, max(tops) if self.share_y else top))
         for ax in axes:
-            if "xlim" in ctx.shared and spec.chart.x == "numeric" and self.share_x:
-                ax.set_xlim(*ctx.shared["xlim"])
-            if "ylim" in ctx.shared and spec.chart.y == "numeric" and self.share_y:
-                ax.set_ylim(*ctx.shared["ylim"])
+            set_limits(ax, ctx.shared["xlim"] if "xlim" in ctx.shared and spec.chart.x == "numeric"
+                       and self.share_x else None,
+                       ctx.shared["ylim"] if "ylim" in ctx.shared and spec.chart.y == "numeric"
+                       and self.share_y else None)
             grid_axis = {"none": None, "x": "x", "y": "y", "both": "both"}[st.grid]
             if spec.chart.name not in ("tiles",):
                 ax.grid(False)
@@ -995,7 +995,7 @@ class _Assembly:
             ctx.cautions.append(notes)
         _pin_ticks(fig)
         from .checks import text_collisions
-        fig.draw_without_rendering()   # legends place their texts only when drawn
+        _place_legend_texts(fig)
         clashes = text_collisions(fig)
         if clashes:
             a, b = clashes[0]
@@ -1041,6 +1041,24 @@ class _Assembly:
             record["bin_edges"] = [float(e) for e in ctx.shared["edges"]]
             record["bins"] = dict(ctx.shared["bin_info"])
         return record
+
+
+def _place_legend_texts(fig) -> None:
+    """Legends place their texts only when drawn: draw them, and nothing else, without output.
+    Every other text already stands where it will be drawn (ticks are pinned by _pin_ticks);
+    an axis offset text (e.g. "1e6") is placed by its axis' draw, so a figure that shows one
+    is drawn whole, as before."""
+    offsets = any(axis.offsetText.get_visible() and axis.offsetText.get_text().strip()
+                  for ax in fig.axes for axis in (ax.xaxis, ax.yaxis))
+    if offsets:
+        fig.draw_without_rendering()
+        return
+    legends = list(fig.legends) + [leg for ax in fig.axes if (leg := ax.get_legend()) is not None]
+    if legends:
+        renderer = fig.canvas.get_renderer()
+        with renderer._draw_disabled():
+            for leg in legends:
+                leg.draw(renderer)
 
 
 def _y_title(spec: FigureSpec) -> str:
