@@ -5,11 +5,12 @@ mixed-mode renderer to a scratch Agg canvas the size of the whole figure at the 
 drawing every consecutive rasterised artist there (one *run*), cropping the canvas to what
 was painted and embedding that image (``MixedModeRenderer.start_rasterizing`` /
 ``stop_rasterizing``).  Saving the same figure as PDF and then SVG paints every run twice,
-and a scratch canvas of a full-width figure at 600 dpi is ~60 MB to clear and scan.
+and a scratch canvas of a full-width figure at 600 dpi is ~60 MB to allocate and scan.
 
 :func:`shared_rasters` paints each run once: the first vector file records the cropped image
 and its place; later vector files at the same dpi embed the recorded image without drawing
-the run's artists.  The embedded image is the very array matplotlib would have made, so the
+the run's artists; every run of a file is painted on one scratch canvas, cleared between runs.
+The embedded image is the very array matplotlib would have made, so the
 files are byte-identical to plain ``savefig`` (tests/test_rasters.py checks this).  Raster
 files (PNG, TIFF) draw everything directly, as matplotlib does.
 
@@ -28,6 +29,19 @@ def _is_mixed(renderer) -> bool:
     return isinstance(renderer, MixedModeRenderer)
 
 
+def _painted(rgba: np.ndarray) -> tuple[slice, slice]:
+    """Rows and columns holding every pixel with alpha > 0: what matplotlib's
+    ``cbook._get_nonzero_slices(rgba[..., 3])`` returns, read as one 32-bit word per pixel
+    instead of a strided byte per pixel (about 4x faster on a 600 dpi canvas)."""
+    words = rgba.view(np.uint32).reshape(rgba.shape[:2])
+    alpha = words >= (1 << 24) if np.little_endian else (words & 0xFF) > 0
+    rows = np.flatnonzero(alpha.any(axis=1))
+    if not rows.size:
+        return slice(0, 0), slice(0, 0)
+    cols = np.flatnonzero(alpha[rows[0]:rows[-1] + 1].any(axis=0))
+    return slice(int(rows[0]), int(rows[-1]) + 1), slice(int(cols[0]), int(cols[-1]) + 1)
+
+
 class _Runs:
     """Recorded runs of one figure: the first artist of a run -> (its artists, image, place)."""
 
@@ -36,6 +50,7 @@ class _Runs:
         self.done: dict[tuple[int, float], tuple[tuple[int, ...], np.ndarray, float, float]] = {}
         self.current: list[int] | None = None     # artists of the run being painted or replayed
         self.replay = None                        # the recorded run being replayed, if any
+        self.scratch = None                       # (size, the Agg canvas runs are painted on)
 
     # ------------------------------------------------------------------ the renderer side
     def hook(self, renderer) -> None:
@@ -44,6 +59,17 @@ class _Runs:
             return
         renderer._figkit_runs = self
         runs = self
+
+        def start_rasterizing():
+            # matplotlib's MixedModeRenderer.start_rasterizing, with one scratch canvas for every
+            # run of the file, cleared between runs, instead of a new one (~60 MB) per run.
+            renderer.figure.dpi = renderer.dpi
+            size = (renderer._width * renderer.dpi, renderer._height * renderer.dpi, renderer.dpi)
+            if runs.scratch is None or runs.scratch[0] != size:
+                runs.scratch = (size, renderer._raster_renderer_class(*size))
+            else:
+                runs.scratch[1].clear()
+            renderer._raster_renderer = renderer._renderer = runs.scratch[1]
 
         def stop_rasterizing():
             if runs.replay is not None:      # embed the recorded image; nothing was painted
@@ -56,11 +82,10 @@ class _Runs:
                     renderer._renderer.draw_image(renderer._renderer.new_gc(), x, y, img)
                 return
             # matplotlib's MixedModeRenderer.stop_rasterizing, keeping the cropped image.
-            from matplotlib import cbook
             renderer._renderer = renderer._vector_renderer
             height = renderer._height * renderer.dpi
             full = np.asarray(renderer._raster_renderer.buffer_rgba())
-            sy, sx = cbook._get_nonzero_slices(full[..., 3])
+            sy, sx = _painted(full)
             img = full[sy, sx][::-1].copy()   # the canvas is freed below: keep a copy
             x = sx.start * renderer._figdpi / renderer.dpi
             y = (height - sy.stop) * renderer._figdpi / renderer.dpi
@@ -72,6 +97,7 @@ class _Runs:
                 runs.done[(runs.current[0], renderer.dpi)] = (tuple(runs.current), img, x, y)
             runs.current = None
 
+        renderer.start_rasterizing = start_rasterizing
         renderer.stop_rasterizing = stop_rasterizing
 
     # ------------------------------------------------------------------ the artist side

@@ -12,7 +12,6 @@ import pytest
 matplotlib.use("Agg")
 
 from matplotlib.backends.backend_agg import FigureCanvasAgg  # noqa: E402
-from matplotlib.backends.backend_mixed import MixedModeRenderer  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
 from figkit.rasters import shared_rasters  # noqa: E402
@@ -47,21 +46,21 @@ def test_vector_files_identical_to_matplotlib_and_layers_painted_once(monkeypatc
     with matplotlib.rc_context(RC):
         fig = _figure()
         plain = {fmt: _save(fig, fmt) for fmt in ("pdf", "svg", "png")}
-        starts = []
-        original = MixedModeRenderer.start_rasterizing
-        monkeypatch.setattr(MixedModeRenderer, "start_rasterizing",
-                            lambda self: (starts.append(1), original(self))[1])
+        import figkit.rasters as R
+        painted_runs = []          # each run painted is cropped once: count the crops
+        crop = R._painted
+        monkeypatch.setattr(R, "_painted", lambda rgba: (painted_runs.append(1), crop(rgba))[1])
         painted = {}
         with shared_rasters(fig):
             for fmt in ("pdf", "png", "svg"):
-                before = len(starts)
+                before = len(painted_runs)
                 painted[fmt] = _save(fig, fmt)
-                starts_in = len(starts) - before
+                runs_in = len(painted_runs) - before
                 if fmt == "pdf":
                     # matplotlib's runs: panel a's two layers as one, panel b's layer, the bar
-                    assert starts_in >= 3
+                    assert runs_in >= 3
                 elif fmt == "svg":
-                    assert starts_in == 0      # every layer reused from the PDF
+                    assert runs_in == 0      # every layer reused from the PDF
         monkeypatch.undo()
         assert painted == plain
         # The figure is left as it was: plain saves afterwards are unchanged too.
@@ -88,3 +87,19 @@ def test_first_file_alone_is_unchanged(fmt):
         plain = _save(fig, fmt)
         with shared_rasters(fig):
             assert _save(fig, fmt) == plain
+
+
+def test_painted_bounds_match_matplotlib():
+    # Reference: matplotlib's own cropping, cbook._get_nonzero_slices of the alpha channel.
+    from matplotlib import cbook
+
+    from figkit.rasters import _painted
+    rng = np.random.default_rng(5)
+    for shape, box in (((300, 420), (40, 260, 10, 400)), ((50, 60), (0, 50, 0, 60)), ((30, 30), None)):
+        rgba = np.zeros(shape + (4,), dtype=np.uint8)
+        rgba[..., :3] = rng.integers(0, 256, shape + (3,))     # colour where alpha is 0 is ignored
+        if box is not None:
+            r0, r1, c0, c1 = box
+            rgba[r0:r1, c0:c1, 3] = rng.integers(0, 2, (r1 - r0, c1 - c0)) * rng.integers(1, 256)
+            rgba[r0, c0, 3] = rgba[r1 - 1, c1 - 1, 3] = 1
+        assert _painted(rgba) == cbook._get_nonzero_slices(rgba[..., 3])
