@@ -132,41 +132,58 @@ def _outside(fig, bb) -> bool:
     return bb.x0 < -0.5 or bb.y0 < -0.5 or bb.x1 > fig.bbox.width + 0.5 or bb.y1 > fig.bbox.height + 0.5
 
 
-def _measure(fig, axes, which: str) -> float:
+class _TickBoxes:
+    """The tick labels each axis draws, with their boxes (px), read once for one placement:
+    settle measures widths, heights and both overhangs from the same labels, so each axis'
+    ticks are placed and its labels measured once per round instead of four times.  Valid
+    until the axes are placed again (settle makes a new one each round)."""
+
+    def __init__(self, fig):
+        self.renderer = fig.canvas.get_renderer()
+        self._seen: dict[int, list] = {}
+
+    def __call__(self, axis) -> list:
+        key = id(axis)
+        if key not in self._seen:
+            self._seen[key] = [(t, t.get_window_extent(self.renderer))
+                               for t in _drawn_tick_labels(axis, self.renderer)]
+        return self._seen[key]
+
+
+def _measure(fig, axes, which: str, boxes: _TickBoxes | None = None) -> float:
     """Largest extent (mm) of the tick labels drawn: width for 'y', height for 'x'."""
-    renderer = fig.canvas.get_renderer()
+    boxes = boxes or _TickBoxes(fig)
     best = 0.0
     for ax in axes:
-        for t in _drawn_tick_labels(ax.yaxis if which == "y" else ax.xaxis, renderer):
-            bb = t.get_window_extent(renderer)
+        for _t, bb in boxes(ax.yaxis if which == "y" else ax.xaxis):
             best = max(best, _mm(fig, bb.width if which == "y" else bb.height))
     return best
 
 
-def _right_overhang(fig, axes, grid: L.Grid) -> float:
+def _right_overhang(fig, axes, grid: L.Grid, boxes: _TickBoxes | None = None) -> float:
     """How far (mm) x tick labels of the last panel column reach past its right edge."""
-    renderer = fig.canvas.get_renderer()
+    boxes = boxes or _TickBoxes(fig)
     worst = 0.0
     for i, ax in enumerate(axes):
         if i % grid.cols != grid.cols - 1:
             continue
         right = ax.get_position().x1 * fig.bbox.width
-        for t in _drawn_tick_labels(ax.xaxis, renderer):
-            worst = max(worst, _mm(fig, t.get_window_extent(renderer).x1 - right))
+        for _t, bb in boxes(ax.xaxis):
+            worst = max(worst, _mm(fig, bb.x1 - right))
     return worst
 
 
-def _top_overhang(fig, axes, grid: L.Grid) -> float:
+def _top_overhang(fig, axes, grid: L.Grid, boxes: _TickBoxes | None = None) -> float:
     """How far (mm) y tick labels of the first panel row reach above its top edge (a label at
     the top of the range, as 100% of a shares chart, is centred on that edge)."""
-    renderer = fig.canvas.get_renderer()
+    boxes = boxes or _TickBoxes(fig)
     worst = 0.0
     for i, ax in enumerate(axes):
         if i >= grid.cols:
             break
         top = ax.get_position().y1 * fig.bbox.height
-        for t in _drawn_tick_labels(ax.yaxis, renderer):
-            worst = max(worst, _mm(fig, t.get_window_extent(renderer).y1 - top))
+        for _t, bb in boxes(ax.yaxis):
+            worst = max(worst, _mm(fig, bb.y1 - top))
     return worst
 
 
@@ -702,15 +719,16 @@ class _Assembly:
         yw = xh = 0.0
         before = None
         for it in range(8):
-            yw_now, xh_now = _measure(fig, axes, "y"), _measure(fig, axes, "x")
+            boxes = _TickBoxes(fig)      # this placement's labels, read once
+            yw_now, xh_now = _measure(fig, axes, "y", boxes), _measure(fig, axes, "x", boxes)
             yw, xh = (max(yw, yw_now), max(xh, xh_now)) if it >= 2 else (yw_now, xh_now)
             mm = self.margins(self.legend_room, yw, xh)
             if self.grid is not None:   # x labels of the last column may reach past the panel
-                over = _right_overhang(fig, axes, self.grid)
+                over = _right_overhang(fig, axes, self.grid, boxes)
                 if over + EDGE_MM > mm.right:
                     mm = replace(mm, right=over + EDGE_MM)
                 # ... and y labels of the first row above it: they keep clear of the top edge.
-                over = _top_overhang(fig, axes, self.grid) + TEXT_EDGE_MM
+                over = _top_overhang(fig, axes, self.grid, boxes) + TEXT_EDGE_MM
                 if over > mm.top + mm.title:
                     mm = replace(mm, top=over - mm.title)
             g = self.choose_grid(mm)
