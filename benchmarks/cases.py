@@ -374,10 +374,110 @@ def case_loess(a: dict) -> dict:
             "peak_reset": peak_reset, "data_bytes": x.nbytes + y.nbytes}
 
 
+# ------------------------------------------------------- per-figure cost (cases 9 and 10)
+def _plain_save(fig, path: Path, fmt: str, dpi: float) -> None:
+    """matplotlib alone saving a finished Figure: savefig with the file's dpi; PNG at the same
+    zlib level figkit uses (like for like: the level changes only the encoder's time)."""
+    extra = {"pil_kwargs": {"compress_level": 1}} if fmt == "png" else {}
+    fig.savefig(path, format=fmt, dpi=dpi, **extra)
+
+
+def _wall_and_cpu(fn, repeat: int) -> dict:
+    """Best of ``repeat`` runs by wall time and, separately, by this process's CPU time (the
+    steadier measure on a shared machine: other work slows a run's wall time, hardly its CPU)."""
+    wall, cpu = [], []
+    for _ in range(max(1, repeat)):
+        t0, c0 = time.perf_counter(), time.process_time()
+        fn()
+        wall.append(time.perf_counter() - t0)
+        cpu.append(time.process_time() - c0)
+    return {"seconds": min(wall), "times": wall, "cpu_s": min(cpu), "cpu_times": cpu}
+
+
+def case_demo_figures(a: dict) -> dict:
+    """Case 9: each demo figure in one warm process: figkit's whole render against plain
+    matplotlib saving the Figure figkit built to the same formats at the same dpi, each the best
+    of ``repeat`` runs (wall and CPU time).  The Figure is taken from figkit.draw.build_figure as
+    render calls it; the plain saves run under the house style's rcParams, as figkit's do
+    (fonts, hash salt)."""
+    import matplotlib
+    matplotlib.use("Agg")
+    import figkit.draw
+    from figkit.render import load_project, render
+    built = []
+    inner = figkit.draw.build_figure
+
+    def keep(*args, **kwargs):
+        out = inner(*args, **kwargs)
+        built.append(out[0])
+        return out
+    figkit.draw.build_figure = keep
+    totals = _stage_timers()
+    out_dir = Path(a["out"])
+    out_dir.mkdir(parents=True, exist_ok=True)
+    render(load_project(a["root"]), a["ids"][0])     # fonts and caches warm, as in a warm loop
+    res = {}
+    for fid in a["ids"]:
+        stage_runs, recs = [], []
+
+        def once():
+            totals.clear()
+            built.clear()
+            recs.append(render(load_project(a["root"]), fid))
+            stage_runs.append(dict(totals))
+        fk = _wall_and_cpu(once, a.get("repeat", 3))
+        fig, rec = built[-1], recs[-1]
+        spec = load_project(a["root"]).spec(fid)
+        formats = list(rec["files"])
+
+        def plain():
+            with matplotlib.rc_context(spec.style.rc):
+                for fmt in formats:
+                    _plain_save(fig, out_dir / f"{fid}.{fmt}", fmt, spec.style.dpi)
+        base = _wall_and_cpu(plain, a.get("repeat", 3))
+        res[fid] = {**fk, "baseline_s": base["seconds"], "baseline_times": base["times"],
+                    "baseline_cpu_s": base["cpu_s"], "formats": formats, "chart": rec["chart"],
+                    "panels": len(rec["panels"]),
+                    "stages": stage_runs[int(np.argmin(fk["times"]))]}
+    return {"figures": res}
+
+
+def case_plain_grid(a: dict) -> dict:
+    """Case 10's plain side: the script one would write for a two-way grid of scatter panels,
+    run in a fresh process (the driver times the whole process): read the CSV with pandas, one
+    panel per pair of levels on figkit's grid and size, ax.scatter(alpha=0.1) of every point,
+    save a PDF.  Default matplotlib style, no rasterizing."""
+    t0 = time.perf_counter()
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    import pandas as pd
+    import_s = time.perf_counter() - t0
+    t1 = time.perf_counter()
+    x, y = a["x"], a["y"]
+    df = pd.read_csv(a["csv"])
+    fig, axes = plt.subplots(a["rows"], a["cols"], figsize=(a["size_mm"][0] / 25.4, a["size_mm"][1] / 25.4),
+                             sharex=True, sharey=True, squeeze=False)
+    n_drawn = 0
+    for ax, keys in zip(axes.flat, a["keys"]):
+        mask = np.ones(len(df), dtype=bool)
+        for field, level in keys.items():
+            mask &= (df[field] == level).to_numpy()
+        part = df.loc[mask, [x, y]].dropna()
+        ax.scatter(part[x].to_numpy(), part[y].to_numpy(), s=a["marker_pt2"], alpha=0.1, linewidths=0)
+        ax.set_title(" / ".join(str(v) for v in keys.values()), fontsize=7)
+        n_drawn += len(part)
+    fig.savefig(a["out"], format="pdf")
+    plt.close(fig)
+    return {"seconds": time.perf_counter() - t1, "import_s": import_s,
+            "pdf_bytes": Path(a["out"]).stat().st_size, "points": n_drawn}
+
+
 CASES = {"make_csv": case_make_csv, "make_parquet": case_make_parquet,
          "figkit_render": case_figkit_render, "plain_scatter": case_plain_scatter,
          "plain_demo": case_plain_demo, "bincount_bound": case_bincount_bound,
-         "line_fits": case_line_fits, "loess": case_loess}
+         "line_fits": case_line_fits, "loess": case_loess,
+         "demo_figures": case_demo_figures, "plain_grid": case_plain_grid}
 
 
 def main(argv: list[str]) -> int:

@@ -642,6 +642,123 @@ def bench_parquet(sz, work, rows, details, data_log, big):
         rows.append(["7. Parquet streamed: 1e8 rows", "1e8", "not run (use --big)", "—", "—", "—", "—"])
 
 
+# ------------------------------------------------------- per-figure cost (cases 9 and 10)
+# The demo figures of case 9, by id (rows added to the demo sheet later are not timed here;
+# an id no longer in the sheet is skipped and said so).
+DEMO_IDS = ("oxygen-temperature", "oxygen-season-grid", "conductivity-catchments",
+            "temperature-seasons", "turbidity-density", "temperature-histogram", "taxa-counts",
+            "sensitive-share", "taxa-tiles", "oxygen-flow-bands", "conductivity-discharge",
+            "counts-by-year")
+DENSE_FIGURE = "oxygen-season-grid"   # case 10: the demo's densest grid (16 panels, every reading)
+SAVE_RATIO_MAX = 1.5
+
+
+def demo_with_data(work: Path, name: str, data_log: dict) -> Path | None:
+    """A copy of the demo project (demo_project) with its data at scale 1, written once."""
+    root = demo_project(work / name)
+    if not (root / "data" / "readings.csv").is_file():
+        res = run_command([sys.executable, "-m", "figkit.demo", str(root / "data")], REPO,
+                          work / "out" / f"{name}_data.log")
+        if "error" in res:
+            return None
+        data_log[name] = {"seconds": res["wall_s"], "name": "demo data (scale 1)",
+                          "bytes": sum(f.stat().st_size for f in (root / "data").glob("*.csv"))}
+    return root
+
+
+def sheet_ids(root: Path) -> list[str]:
+    with open(root / "config" / "figures.tsv", encoding="utf-8") as fh:
+        return [line.split("\t", 1)[0] for line in fh.read().splitlines()[1:] if line.strip()]
+
+
+def bench_figure_costs(sz, work, rows, details, data_log):
+    """Case 9: each demo figure in one warm process, figkit's whole render (data, statistics,
+    drawing, checks, files, preflight, sidecar) against plain matplotlib saving the Figure
+    figkit built to the same formats."""
+    title = "9. demo figure, in process: figkit's whole render vs matplotlib saving the finished Figure"
+    target = f"≤ {SAVE_RATIO_MAX}"
+    root = demo_with_data(work, "demo-figures", data_log)
+    if root is None:
+        rows.append([title, "—", "failed: demo data", "—", "—", target, "—"])
+        return
+    present = sheet_ids(root)
+    ids = [i for i in DEMO_IDS if i in present]
+    if len(ids) < len(DEMO_IDS):
+        details["9 skipped"] = {"reason": "not in the demo sheet: " + ", ".join(
+            i for i in DEMO_IDS if i not in present)}
+    res = run_child("demo_figures", {"root": str(root), "ids": ids, "repeat": sz["repeat"],
+                                     "out": str(work / "plain-saves")}, work, "demo_figures")
+    if "error" in res:
+        rows.append([title, "—", "failed", "—", "—", target, "—"])
+        return
+    for fid, d in res["figures"].items():
+        r, rc = d["seconds"] / d["baseline_s"], d["cpu_s"] / d["baseline_cpu_s"]
+        rows.append([f"9. `{fid}` ({d['chart']}, {d['panels']} panels; {' + '.join(d['formats'])}): "
+                     f"figkit render vs plain savefig of its Figure; CPU time (wall: {fs(d['seconds'])} "
+                     f"vs {fs(d['baseline_s'])}, ratio {fr(r)})", "demo, scale 1",
+                     fs(d["cpu_s"]), fs(d["baseline_cpu_s"]), fr(rc), target, met(rc <= SAVE_RATIO_MAX)])
+        details[f"9 figkit render {fid}"] = {"seconds": d["seconds"], "times": d["times"],
+                                             "cpu_s": d["cpu_s"], "stages": d["stages"], "files": {},
+                                             "drawing": d["chart"]}
+        details[f"9 plain savefig {fid}"] = {"seconds": d["baseline_s"], "times": d["baseline_times"],
+                                             "cpu_s": d["baseline_cpu_s"],
+                                             "note": "the Figure figkit built, saved by matplotlib alone"}
+    figs = res["figures"].values()
+    total = {k: sum(d[k] for d in figs) for k in ("seconds", "baseline_s", "cpu_s", "baseline_cpu_s")}
+    rc = total["cpu_s"] / total["baseline_cpu_s"]
+    rows.append([f"9. all {len(res['figures'])} demo figures one after another (sums of best runs); CPU "
+                 f"time (wall: {fs(total['seconds'])} vs {fs(total['baseline_s'])}, ratio "
+                 f"{fr(total['seconds'] / total['baseline_s'])})", "demo, scale 1", fs(total["cpu_s"]),
+                 fs(total["baseline_cpu_s"]), fr(rc), target, met(rc <= SAVE_RATIO_MAX)])
+
+
+def bench_dense_job(sz, work, rows, details, data_log):
+    """Case 10: the densest demo grid, the figure job alone (`python -m figkit render`, what a
+    Snakemake job runs; Snakemake's own floor is case 6f) against a plain matplotlib script
+    drawing every point; both fresh processes timed from start to exit."""
+    title = (f"10. densest demo grid ({DENSE_FIGURE}): figure job alone vs plain matplotlib script "
+             "drawing all points (fresh processes, start-up and imports included)")
+    target = "≤ 0.2 (≥ 5× faster)"
+    root = demo_with_data(work, "demo-dense", data_log)
+    if root is None or DENSE_FIGURE not in sheet_ids(root):
+        rows.append([title, "—", "failed: demo data" if root is None else "not in the sheet",
+                     "—", "—", target, "—"])
+        return
+    cmd = [sys.executable, "-m", "figkit", "render", "--id", DENSE_FIGURE]
+    job_runs = [run_command(cmd, root, work / "out" / f"dense_job_{i}.log") for i in range(sz["repeat"])]
+    job = best_of(job_runs)
+    if "error" in job:
+        rows.append([title, "—", "failed", "—", "—", target, "—"])
+        return
+    side = json.loads((root / "results" / "figures" / f"{DENSE_FIGURE}.json").read_text())
+    base_runs = [run_child("plain_grid", {
+        "csv": str(root / side["inputs"][0]["path"]), "x": side["x"], "y": side["y"],
+        "keys": [p["keys"] for p in side["panels"]], "size_mm": side["size_mm"],
+        "rows": side["layout"]["rows"], "cols": side["layout"]["cols"], "marker_pt2": marker_pt2(),
+        "out": str(work / "plain_grid.pdf")}, work, f"plain_grid_{i}") for i in range(sz["repeat"])]
+    base = best_of(base_runs)
+    files = {fmt: (root / "results" / "figures" / name).stat().st_size for fmt, name in side["files"].items()}
+    details[f"10 figure job alone: python -m figkit render --id {DENSE_FIGURE}"] = {
+        "seconds": job["wall_s"], "times": [r["wall_s"] for r in job_runs], "cpu_s": job["cpu_s"],
+        "child_peak_bytes": job["ru_maxrss_bytes"],
+        "note": (f"{side['layout']['rows']}×{side['layout']['cols']} panels drawn as "
+                 f"{side['panels'][0].get('drawing', side['chart'])}; files "
+                 + ", ".join(f"{k} {fb(v)}" for k, v in files.items()) + "; plus sidecar and tables")}
+    if "error" in base:
+        rows.append([title, "—", fs(job["wall_s"]), "failed", "—", target, "—"])
+        return
+    details["10 plain matplotlib grid script (fresh process each run)"] = {
+        "seconds": base["wall_s"], "times": [r["wall_s"] for r in base_runs], "cpu_s": base.get("cpu_s"),
+        "import_s": base.get("import_s"), "child_peak_bytes": base.get("child_peak_bytes"),
+        "note": (f"in-process read + draw + save {fs(base.get('seconds'))}; {base.get('points', 0):,} "
+                 f"points; PDF only, {fb(base.get('pdf_bytes'))}")}
+    r = job["wall_s"] / base["wall_s"]
+    cpu = (f"; CPU {fs(job['cpu_s'])} vs {fs(base['cpu_s'])}, ratio {fr(job['cpu_s'] / base['cpu_s'])}"
+           if job.get("cpu_s") and base.get("cpu_s") else "")
+    rows.append([title + cpu, f"{side['rows_kept']:,} rows, {len(side['panels'])} panels", fs(job["wall_s"]),
+                 fs(base["wall_s"]), fr(r), target, met(r <= 0.2)])
+
+
 # -------------------------------------------------------------------------------- reports
 def short_path(filename: str) -> str:
     for marker in ("site-packages/", str(REPO) + "/"):
@@ -780,7 +897,7 @@ def main(argv=None) -> int:
     ap.add_argument("--big", action="store_true", help="also try 1e8 rows (needs ~18 GiB free)")
     ap.add_argument("--profile", action="store_true", help="cProfile slow cases into PROFILE.md")
     ap.add_argument("--keep", metavar="DIR", help="keep (and reuse) generated data in DIR")
-    ap.add_argument("--only", default="1,2,3,4,6,7,8",
+    ap.add_argument("--only", default="1,2,3,4,6,7,8,9,10",
                     help="comma list of benchmarks (5 runs with 2; A = 6, B = 7, C = 8)")
     ap.add_argument("--out", default=str(HERE / "RESULTS.md"), help="where the table goes")
     ns = ap.parse_args(argv)
@@ -816,6 +933,12 @@ def main(argv=None) -> int:
         if "8" in only:
             print("8. compare after a data change ...", flush=True)
             bench_compare(sz, work, rows, details)
+        if "9" in only:
+            print("9. each demo figure: render vs plain savefig ...", flush=True)
+            bench_figure_costs(sz, work, rows, details, data_log)
+        if "10" in only:
+            print("10. densest demo grid: job alone vs plain script ...", flush=True)
+            bench_dense_job(sz, work, rows, details, data_log)
         profile_text = profile_report(profiles) if ns.profile else None
     finally:
         if not ns.keep:

@@ -14,7 +14,7 @@ from dataclasses import replace
 import numpy as np
 
 from . import layout as L
-from .charts import DRAWERS, Context
+from .charts import DRAWERS, Context, set_limits
 from .colour import assign_categories
 from .data import FigureData
 from .errors import FigkitError
@@ -135,41 +135,58 @@ def _outside(fig, bb) -> bool:
     return bb.x0 < c.x0 - 0.5 or bb.y0 < c.y0 - 0.5 or bb.x1 > c.x1 + 0.5 or bb.y1 > c.y1 + 0.5
 
 
-def _measure(fig, axes, which: str) -> float:
+class _TickBoxes:
+    """The tick labels each axis draws, with their boxes (px), read once for one placement:
+    settle measures widths, heights and both overhangs from the same labels, so each axis'
+    ticks are placed and its labels measured once per round instead of four times.  Valid
+    until the axes are placed again (settle makes a new one each round)."""
+
+    def __init__(self, fig):
+        self.renderer = fig.canvas.get_renderer()
+        self._seen: dict[int, list] = {}
+
+    def __call__(self, axis) -> list:
+        key = id(axis)
+        if key not in self._seen:
+            self._seen[key] = [(t, t.get_window_extent(self.renderer))
+                               for t in _drawn_tick_labels(axis, self.renderer)]
+        return self._seen[key]
+
+
+def _measure(fig, axes, which: str, boxes: _TickBoxes | None = None) -> float:
     """Largest extent (mm) of the tick labels drawn: width for 'y', height for 'x'."""
-    renderer = fig.canvas.get_renderer()
+    boxes = boxes or _TickBoxes(fig)
     best = 0.0
     for ax in axes:
-        for t in _drawn_tick_labels(ax.yaxis if which == "y" else ax.xaxis, renderer):
-            bb = t.get_window_extent(renderer)
+        for _t, bb in boxes(ax.yaxis if which == "y" else ax.xaxis):
             best = max(best, _mm(fig, bb.width if which == "y" else bb.height))
     return best
 
 
-def _right_overhang(fig, axes, grid: L.Grid) -> float:
+def _right_overhang(fig, axes, grid: L.Grid, boxes: _TickBoxes | None = None) -> float:
     """How far (mm) x tick labels of the last panel column reach past its right edge."""
-    renderer = fig.canvas.get_renderer()
+    boxes = boxes or _TickBoxes(fig)
     worst = 0.0
     for i, ax in enumerate(axes):
         if i % grid.cols != grid.cols - 1:
             continue
         right = fig.bbox.x0 + ax.get_position().x1 * fig.bbox.width
-        for t in _drawn_tick_labels(ax.xaxis, renderer):
-            worst = max(worst, _mm(fig, t.get_window_extent(renderer).x1 - right))
+        for _t, bb in boxes(ax.xaxis):
+            worst = max(worst, _mm(fig, bb.x1 - right))
     return worst
 
 
-def _top_overhang(fig, axes, grid: L.Grid) -> float:
+def _top_overhang(fig, axes, grid: L.Grid, boxes: _TickBoxes | None = None) -> float:
     """How far (mm) y tick labels of the first panel row reach above its top edge (a label at
     the top of the range, as 100% of a shares chart, is centred on that edge)."""
-    renderer = fig.canvas.get_renderer()
+    boxes = boxes or _TickBoxes(fig)
     worst = 0.0
     for i, ax in enumerate(axes):
         if i >= grid.cols:
             break
         top = fig.bbox.y0 + ax.get_position().y1 * fig.bbox.height
-        for t in _drawn_tick_labels(ax.yaxis, renderer):
-            worst = max(worst, _mm(fig, t.get_window_extent(renderer).y1 - top))
+        for _t, bb in boxes(ax.yaxis):
+            worst = max(worst, _mm(fig, bb.y1 - top))
     return worst
 
 
@@ -665,12 +682,12 @@ class _Assembly:
                 ax.autoscale_view()
                 tops.append(ax.get_ylim()[1])
             for ax, top in zip(axes, tops):
-                ax.set_ylim(0, max(tops) if self.share_y else top)
+                set_limits(ax, y=(0, max(tops) if self.share_y else top))
         for ax in axes:
-            if "xlim" in ctx.shared and spec.chart.x == "numeric" and self.share_x:
-                ax.set_xlim(*ctx.shared["xlim"])
-            if "ylim" in ctx.shared and spec.chart.y == "numeric" and self.share_y:
-                ax.set_ylim(*ctx.shared["ylim"])
+            set_limits(ax, ctx.shared["xlim"] if "xlim" in ctx.shared and spec.chart.x == "numeric"
+                       and self.share_x else None,
+                       ctx.shared["ylim"] if "ylim" in ctx.shared and spec.chart.y == "numeric"
+                       and self.share_y else None)
             grid_axis = {"none": None, "x": "x", "y": "y", "both": "both"}[st.grid]
             if spec.chart.name not in ("tiles",):
                 ax.grid(False)
@@ -725,15 +742,16 @@ class _Assembly:
         yw = xh = 0.0
         before = None
         for it in range(8):
-            yw_now, xh_now = _measure(fig, axes, "y"), _measure(fig, axes, "x")
+            boxes = _TickBoxes(fig)      # this placement's labels, read once
+            yw_now, xh_now = _measure(fig, axes, "y", boxes), _measure(fig, axes, "x", boxes)
             yw, xh = (max(yw, yw_now), max(xh, xh_now)) if it >= 2 else (yw_now, xh_now)
             mm = self.margins(self.legend_room, yw, xh)
             if self.grid is not None:   # x labels of the last column may reach past the panel
-                over = _right_overhang(fig, axes, self.grid)
+                over = _right_overhang(fig, axes, self.grid, boxes)
                 if over + EDGE_MM > mm.right:
                     mm = replace(mm, right=over + EDGE_MM)
                 # ... and y labels of the first row above it: they keep clear of the top edge.
-                over = _top_overhang(fig, axes, self.grid) + TEXT_EDGE_MM
+                over = _top_overhang(fig, axes, self.grid, boxes) + TEXT_EDGE_MM
                 if over > mm.top + mm.title:
                     mm = replace(mm, top=over - mm.title)
             g = self.choose_grid(mm)
@@ -1018,7 +1036,7 @@ class _Assembly:
             ctx.cautions.append(notes)
         _pin_ticks(fig)
         from .checks import text_collisions
-        fig.get_figure(root=True).draw_without_rendering()   # legends place their texts only when drawn
+        _place_legend_texts(fig)
         clashes = text_collisions(fig)
         if clashes:
             a, b = clashes[0]
@@ -1064,6 +1082,24 @@ class _Assembly:
             record["bin_edges"] = [float(e) for e in ctx.shared["edges"]]
             record["bins"] = dict(ctx.shared["bin_info"])
         return record
+
+
+def _place_legend_texts(fig) -> None:
+    """Legends place their texts only when drawn: draw them, and nothing else, without output.
+    Every other text already stands where it will be drawn (ticks are pinned by _pin_ticks);
+    an axis offset text (e.g. "1e6") is placed by its axis' draw, so a figure that shows one
+    is drawn whole, as before."""
+    offsets = any(axis.offsetText.get_visible() and axis.offsetText.get_text().strip()
+                  for ax in fig.axes for axis in (ax.xaxis, ax.yaxis))
+    if offsets:     # (a part's sub-figure is drawn by its page)
+        fig.get_figure(root=True).draw_without_rendering()
+        return
+    legends = list(fig.legends) + [leg for ax in fig.axes if (leg := ax.get_legend()) is not None]
+    if legends:
+        renderer = fig.canvas.get_renderer()
+        with renderer._draw_disabled():
+            for leg in legends:
+                leg.draw(renderer)
 
 
 def _y_title(spec: FigureSpec) -> str:

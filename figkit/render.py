@@ -434,10 +434,12 @@ def write_figure(fig, record: dict, fid: str, formats, style, out_dir: Path, min
     targets = [out_dir / f"{fid}.{fmt}" for fmt in formats]
     record["values_file"] = f"{fid}.values.csv"
     targets += [out_dir / record["values_file"], out_dir / f"{fid}.stats.csv", out_dir / f"{fid}.json"]
+    from .rasters import shared_rasters
     with P.atomic_outputs(targets) as temps:
-        for fmt, tmp in zip(formats, temps):
-            progress.stage(f"writing {fmt.upper()}")
-            _save(fig, tmp, fmt, fid, style.dpi, meta)
+        with shared_rasters(fig):      # each dense layer painted once for PDF and SVG
+            for fmt, tmp in zip(formats, temps):
+                progress.stage(f"writing {fmt.upper()}")
+                _save(fig, tmp, fmt, fid, style.dpi, meta)
         progress.stage("preflight: reading the files back")
         # Preflight reads the files just written (still under their temporary names); in a
         # strict house style a failure aborts here and nothing is renamed into place.

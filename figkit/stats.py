@@ -435,8 +435,34 @@ def loess_at(x, y, x_eval, *, span: float = 0.75, degree: int = 1,
     return _local_fit(xs, ys, rw, x_eval, q, degree) + shift
 
 
+def _delta_vertices(xs: np.ndarray, delta: float) -> np.ndarray:
+    """Indices of the sorted x where Cleveland's (1979) lowess computes a local fit when fits
+    closer than ``delta`` are skipped: the first point; then, from the last point fitted (and
+    the points tied with it), the last point within ``delta`` of it, or the next point when
+    none is (one step forward at least); ending at the last point.  Every point in between is
+    linearly interpolated.  This is the rule of Cleveland's routine as statsmodels' ``lowess``
+    keeps it (``update_indices`` in statsmodels/nonparametric/_smoothers_lowess.pyx)."""
+    n = xs.size
+    out = [0]
+    i = 0
+    while True:
+        last = i
+        cut = xs[last] + delta
+        # The first point past the cut-off (the last point when none is past it); the points
+        # tied with x[last] share its fit.
+        k = int(np.searchsorted(xs, cut, side="right"))
+        k = min(k, n - 1) if k < n else n - 1
+        last = int(np.searchsorted(xs, xs[last], side="right")) - 1
+        if last >= n - 1:
+            break
+        i = max(k - 1, last + 1)
+        out.append(i)
+    return np.asarray(out, dtype=np.intp)
+
+
 def loess(x, y, *, span: float = 0.75, degree: int = 1, iterations: int = 0,
-          n_eval: int | None = None, grid=None) -> tuple[np.ndarray, np.ndarray]:
+          n_eval: int | None = None, grid=None, delta: float | None = None
+          ) -> tuple[np.ndarray, np.ndarray]:
     """LOESS smooth for drawing: ``(xs, ys)`` sorted by xs.
 
     The method of :func:`loess_at` (Cleveland 1979; Cleveland & Devlin 1988), with the
@@ -447,6 +473,10 @@ def loess(x, y, *, span: float = 0.75, degree: int = 1, iterations: int = 0,
     ``delta`` in the same way).  When the data have at most ``n_eval`` distinct x, the
     fit is computed at every distinct x and nothing is interpolated.
 
+    ``delta`` (instead of ``n_eval``): the vertices are the data points Cleveland's lowess
+    fits at when it skips fits closer than ``delta`` in x (:func:`_delta_vertices`), so the
+    curve, interpolated linearly at the data, is statsmodels' ``lowess(..., delta=delta)``.
+
     Output points: ``grid`` if given (evaluated exactly, with the final robustness
     weights), else the vertices (or every distinct x).
     """
@@ -456,10 +486,16 @@ def loess(x, y, *, span: float = 0.75, degree: int = 1, iterations: int = 0,
     if not isinstance(n_eval, (int, np.integer)) or isinstance(n_eval, bool) or n_eval < 4:
         raise FigkitError("number of LOESS evaluation points must be a whole number >= 4",
                           field="n_eval", value=n_eval)
+    if delta is not None and (isinstance(delta, bool) or not isinstance(delta, (int, float, np.number))
+                              or not math.isfinite(delta) or delta < 0):
+        raise FigkitError("LOESS delta must be a number >= 0", field="delta", value=delta)
     xs, ys, shift = _sorted_data(x, y, degree)
     q = _loess_q(span, xs.size, degree)
-    distinct = np.unique(xs)
-    verts = distinct if distinct.size <= n_eval else _loess_vertices(xs, int(n_eval))
+    if delta is not None:
+        verts = xs[_delta_vertices(xs, float(delta))]
+    else:
+        distinct = np.unique(xs)
+        verts = distinct if distinct.size <= n_eval else _loess_vertices(xs, int(n_eval))
     rw = np.ones(xs.size)
     for _ in range(iterations):
         at_verts = _local_fit(xs, ys, rw, verts, q, degree)

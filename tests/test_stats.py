@@ -247,6 +247,51 @@ def test_loess_with_ties_matches_statsmodels():
     assert np.interp(x, xs, ys) == pytest.approx(ref, rel=1e-8, abs=1e-8)
 
 
+@pytest.mark.parametrize("n,span,iterations,ties", [(20_000, 0.3, 0, False), (8_000, 0.5, 1, False),
+                                                    (6_000, 0.4, 0, True)])
+def test_loess_on_a_delta_grid_matches_direct_and_statsmodels(n, span, iterations, ties):
+    # Cleveland (1979) speed-up: fit only at points at least delta apart in x, interpolate
+    # linearly in between.  Reference: statsmodels lowess with the same delta (the same rule,
+    # so the same vertices); and figkit's direct evaluation at every point (loess_at, no
+    # interpolation).  Tolerance: 1e-6 of the y range (the issue's bound for drawing).
+    x, y = _smooth_data(n, seed=7)
+    if ties:
+        x = np.round(x, 2)                      # ties, but enough distinct x to interpolate
+    delta = float(np.ptp(x)) / (300 if ties else 4000)
+    y_range = float(np.ptp(y))
+    xs, ys = loess(x, y, span=span, iterations=iterations, delta=delta)
+    assert 100 < xs.size < np.unique(x).size    # really a grid: most points interpolated
+    at_data = np.interp(x, xs, ys)
+    ref = sm_lowess(y, x, frac=span, it=iterations, delta=delta, return_sorted=False)
+    assert np.abs(at_data - ref).max() <= 1e-6 * y_range
+    # At the grid's own points the fit is the direct evaluation (loess_at: every local fit
+    # computed, nothing interpolated).
+    if iterations == 0:
+        assert np.abs(ys - loess_at(x, y, xs, span=span)).max() <= 1e-6 * y_range
+    # Between grid points the line is interpolated: against the direct evaluation at a sample
+    # of the data points (all of them would cost O(n q)) it stays far inside the drawn line's
+    # width, 1e-3 of the y range (common practice, no source).  With robustness iterations the
+    # weights come from residuals of the interpolated fit, as in Cleveland's routine.
+    rng = np.random.default_rng(8)
+    check = x[rng.choice(n, 1500, replace=False)]
+    direct = loess_at(x, y, check, span=span, iterations=iterations)
+    assert np.abs(np.interp(check, xs, ys) - direct).max() <= 1e-3 * y_range
+
+
+def test_loess_delta_rule_vertices():
+    # The rule by hand (Cleveland 1979, as statsmodels' update_indices): from x = 0 the last
+    # point within delta = 1 is x = 1 -> fit there; the tie at 1 shares it; from 1 the last
+    # point within 2 is 2 -> fit; from 2 nothing lies within 3, so the next point, 5; from 5
+    # no point lies past 6, and the routine then steps to the second-last point, 5.5 (its
+    # search ends on the last index), and from there to the last, 6.
+    x = np.array([0, 0.5, 1, 1, 2, 5, 5.5, 6.0])
+    y = np.arange(x.size, dtype=float)
+    xs, _ = loess(x, y, span=0.9, delta=1.0)
+    assert list(xs) == [0.0, 1.0, 2.0, 5.0, 5.5, 6.0]
+    with pytest.raises(FigkitError, match="delta"):
+        loess(x, y, delta=-1.0)
+
+
 def test_loess_many_ties_at_one_x():
     # Hand-computed from the definition: with q = floor(0.5 * 6) = 3 and four points at
     # x = 0, h(0) = 0; the value there is the mean of the tied y (our documented rule),
