@@ -94,6 +94,7 @@ def run_client(argv: list[str]) -> int | None:
     if where is None or not available():
         return None
     path, owner = where
+    conn = None
     try:
         conn = _connect(path) or _start_server(path, owner)
         if conn is None:
@@ -102,10 +103,14 @@ def run_client(argv: list[str]) -> int | None:
                               "sys_argv": sys.argv}).encode()
         socket.send_fds(conn, [_HEADER.pack(len(request))], [0, 1, 2])
         conn.sendall(request)
+        conn.settimeout(START_WAIT_S)
         if conn.recv(1) != b"A":       # the server ended before taking it: nothing has started
             conn.close()
             return None
-    except OSError:
+        conn.settimeout(None)
+    except OSError:     # closed first: a render that would start late finds no job and ends
+        if conn is not None:
+            conn.close()
         return None
     return _wait(conn)
 
@@ -154,7 +159,8 @@ def _connect(path: str) -> socket.socket | None:
 
 
 def _start_server(path: str, owner: int) -> socket.socket | None:
-    """Start the server unless another job has just done so (a lock beside the socket)."""
+    """Start the server unless another job has just done so (a lock beside the socket), then
+    wait for its socket: parallel jobs start one server between them."""
     with open(path + ".lock", "a") as lock:
         fcntl.flock(lock, fcntl.LOCK_EX)
         conn = _connect(path)
@@ -181,10 +187,11 @@ def serve(path: str, owner: int) -> None:
     os.environ.setdefault("MPLBACKEND", "Agg")     # as cli.main does before anything is drawn
     import importlib
     for name in PRELOAD:
-        importlib.import_module(name)
+        try:
+            importlib.import_module(name)
+        except ImportError:    # an optional piece missing: the render imports (or misses) it itself
+            pass
     note("interpreter", "warm server")
-    # Children are reaped by the system; each child sets the default back (subprocess needs it).
-    signal.signal(signal.SIGCHLD, signal.SIG_IGN)
     listener = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
     listener.bind(path)           # made only now, so a connection means the imports are done
     listener.listen(16)
@@ -195,20 +202,37 @@ def serve(path: str, owner: int) -> None:
             try:
                 conn, _ = listener.accept()
             except TimeoutError:
+                _reap()
                 continue
             last = time.monotonic()
             conn.settimeout(None)
             if os.fork() == 0:
                 listener.close()
-                signal.signal(signal.SIGCHLD, signal.SIG_DFL)
                 _child(conn)       # never returns
             conn.close()
+            _reap()
     finally:
-        try:
-            os.unlink(path)
-        except OSError:
-            pass
+        for name in (path, path + ".lock"):   # first: no job may wait on a server that is ending
+            try:
+                os.unlink(name)
+            except OSError:
+                pass
         listener.close()
+        _reap(block=True)
+        t = os.times()     # the server's CPU and its renders' (reaped), for the benchmarks' accounts
+        note("exit", f"cpu_s={t.user + t.system + t.children_user + t.children_system:.3f}")
+
+
+def _reap(block: bool = False) -> None:
+    """Collect ended renders (no zombies; their CPU time joins the server's children's).
+    ``block``: wait for every render still running (the server is ending)."""
+    while True:
+        try:
+            pid, _ = os.waitpid(-1, 0 if block else os.WNOHANG)
+        except ChildProcessError:
+            return
+        if pid == 0:
+            return
 
 
 def _alive(pid: int) -> bool:
@@ -221,20 +245,27 @@ def _alive(pid: int) -> bool:
     return True
 
 
+def _read(conn: socket.socket, n: int) -> bytes:
+    out = b""
+    while len(out) < n:
+        chunk = conn.recv(n - len(out))
+        if not chunk:          # the job went away before its request was whole
+            os._exit(1)
+        out += chunk
+    return out
+
+
 def _child(conn: socket.socket) -> None:
     code = 1
     try:
         head, fds, _, _ = socket.recv_fds(conn, _HEADER.size, 3)
-        while len(head) < _HEADER.size:
-            head += conn.recv(_HEADER.size - len(head))
-        (size,) = _HEADER.unpack(head)
-        body = b""
-        while len(body) < size:
-            chunk = conn.recv(size - len(body))
-            if not chunk:
-                os._exit(1)
-            body += chunk
+        head += _read(conn, _HEADER.size - len(head))
+        body = _read(conn, _HEADER.unpack(head)[0])
         req = json.loads(body)
+        try:
+            conn.sendall(b"A")
+        except OSError:       # the job gave up waiting and renders itself: leave it alone
+            os._exit(1)
         global FORKED
         FORKED = True
         for target, fd in enumerate(fds):
@@ -245,7 +276,6 @@ def _child(conn: socket.socket) -> None:
         os.environ.update(req["env"])
         sys.argv = req["sys_argv"]
         sys.stdout.reconfigure(line_buffering=os.isatty(1))
-        conn.sendall(b"A")
         _watch(conn)
         note("fork", " ".join(req["argv"]))
         from figkit.cli import main
