@@ -217,3 +217,36 @@ def test_a_signal_to_the_job_reaches_its_render(tmp_path):
     finally:
         owner.kill()
         owner.wait()
+
+
+def test_a_grouped_cluster_build_shares_one_interpreter_per_group(tmp_path):
+    """The generic cluster profile (five figure jobs to a group) with the stand-in batch system of
+    tests/cluster (each group job started under `env -i`, as on another node; here it also passes
+    FIGKIT_PROCESS_LOG on): three figures go to the queue as one group job (Snakemake's account:
+    one submission), and that job's figures are rendered by one interpreter on the node."""
+    pytest.importorskip("snakemake_executor_plugin_cluster_generic")
+    import shutil
+    from conftest import REPO
+    project = copy_project(tmp_path / "grouped")
+    shutil.copytree(REPO / "profiles", project / "profiles")
+    make_demo_data(project)
+    sheet = project / "config" / "figures.tsv"
+    lines = sheet.read_text(encoding="utf-8").splitlines(keepends=True)
+    keep = ("temperature-histogram", "taxa-counts", "sensitive-share")
+    sheet.write_text(lines[0] + "".join(ln for ln in lines[1:] if ln.split("\t", 1)[0] in keep),
+                     encoding="utf-8")
+    log = tmp_path / "processes.log"
+    submit = tmp_path / "submit.sh"
+    submit.write_text((REPO / "tests" / "cluster" / "submit.sh").read_text().replace(
+        'env -i PATH="$PATH" HOME="$HOME"', f'env -i PATH="$PATH" HOME="$HOME" {warm.LOG_VAR}={log}'))
+    _build(project, "--profile", "profiles/cluster-generic",
+           "--cluster-generic-submit-cmd", f"sh {submit}",
+           "--cluster-generic-status-cmd", f"sh {REPO / 'tests' / 'cluster' / 'status.sh'}",
+           "--cluster-generic-cancel-cmd", "true", "--latency-wait", "10")
+    assert len((project / ".queue" / "submitted").read_text().split()) == 1
+    for fid in keep:
+        assert (project / "results" / "figures" / f"{fid}.json").is_file()
+    events = _events(log)
+    assert [e[2] for e in events if e[0] == "interpreter"] == ["warm server"]
+    forked = sorted(re.search(r"--id (\S+)", e[2]).group(1) for e in events if e[0] == "fork")
+    assert forked == sorted(keep)
