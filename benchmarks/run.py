@@ -12,6 +12,8 @@ PROFILE.md with --profile) and prints the table.
     --profile  cProfile the slow figkit cases and write benchmarks/PROFILE.md
     --keep DIR keep the generated data and projects in DIR (reused when present)
     --only 1,3 run some benchmarks only (5 runs with 2; A = 6, B = 7);  --out FILE  table elsewhere
+    cases 9 and 10 (a full demo build against the code of 651f466, through `git archive` and
+    PYTHONPATH; one sheet edit through `figkit draft` against Snakemake): --only 9,10
 """
 from __future__ import annotations
 
@@ -70,11 +72,11 @@ fields:
 
 
 # ------------------------------------------------------------------------------- plumbing
-def run_command(cmd: list[str], cwd: Path, log: Path) -> dict:
+def run_command(cmd: list[str], cwd: Path, log: Path, extra_env: dict | None = None) -> dict:
     """Run a command in a fresh process: wall time from start to exit (interpreter start and
     imports included) and, from wait4, CPU time and peak RSS over it and its children."""
     log.parent.mkdir(parents=True, exist_ok=True)
-    env = dict(os.environ, MPLBACKEND="Agg", PYTHONHASHSEED="0")
+    env = dict(os.environ, MPLBACKEND="Agg", PYTHONHASHSEED="0", **(extra_env or {}))
     t0 = time.perf_counter()
     with open(log, "w") as fh:
         proc = subprocess.Popen(cmd, stdout=fh, stderr=subprocess.STDOUT, env=env, cwd=cwd)
@@ -891,13 +893,248 @@ def bench_compare(sz, work, rows, details):
                                          "note": f"figkit.compare of {COMPARE_BASE}, SSIM at 600 dpi"}
 
 
+# ----------------------------------------------------------------- 9 and 10: builds and warm loop
+BUILD_BASE = "651f466"        # case 9's baseline: the code before figure jobs shared an interpreter
+DRAFT_FIGURE = "temperature-histogram"
+
+
+def _clean_results(root: Path) -> None:
+    for name in ("results", "logs", ".snakemake"):
+        shutil.rmtree(root / name, ignore_errors=True)
+
+
+def old_tree(work: Path, commit: str) -> Path | None:
+    """The repository at ``commit`` (git archive into a temporary folder; nothing installed: its
+    figkit is imported through PYTHONPATH with the current environment's packages)."""
+    dest = work / f"src-{commit}"
+    if (dest / "Snakefile").is_file():
+        return dest
+    dest.mkdir(parents=True, exist_ok=True)
+    archive = subprocess.run(["git", "-C", str(REPO), "archive", commit], capture_output=True)
+    if archive.returncode != 0:
+        return None
+    subprocess.run(["tar", "-x", "-C", str(dest)], input=archive.stdout, check=True)
+    return dest
+
+
+def bench_build(sz, work, rows, details, data_log):
+    """Benchmark 9: the README's build command (`snakemake --cores 2`) from a clean results folder,
+    today's code against the code of BUILD_BASE, on the same figure sheet (BUILD_BASE's 12 rows)
+    and the same data.  Runs alternate old/new so that load from other users hits both sides;
+    best of ``repeat``.  Also: today's code with FIGKIT_WARM=off (one interpreter per figure job,
+    to split the warm interpreter's share out) and today's full demo sheet."""
+    title = "11. full demo build, `snakemake --cores 2` from a clean results folder"
+    target = "≥ 2.5× faster (ratio ≤ 0.4)"
+    old = old_tree(work, BUILD_BASE)
+    if old is None:
+        rows.append([title, "—", "not measured (no git history)", "—", "—", target, "—"])
+        return
+    new = demo_project(work / "build-new")
+    sheet = (old / "config" / "figures.tsv").read_text(encoding="utf-8")
+    (new / "config" / "figures.tsv").write_text(sheet, encoding="utf-8")   # the same 12 rows
+    current = demo_project(work / "build-current")                       # today's demo sheet
+    logs, snake = work / "out", snakemake_exe()
+    if not (new / "data" / "readings.csv").is_file():
+        res = run_command([sys.executable, "-m", "figkit.demo", str(new / "data")], REPO, logs / "build_data.log")
+        if "error" in res:
+            rows.append([title, "—", "failed: demo data", "—", "—", target, "—"])
+            return
+        data_log["build"] = {"seconds": res["wall_s"], "name": "demo data (scale 1)",
+                             "bytes": sum(f.stat().st_size for f in (new / "data").glob("*.csv"))}
+    for root in (old, current):   # the same data files on every side
+        shutil.rmtree(root / "data", ignore_errors=True)
+        shutil.copytree(new / "data", root / "data")
+    old_env = {"PYTHONPATH": str(old)}
+    check = subprocess.run([sys.executable, "-c", "import figkit; print(figkit.__file__)"], cwd=work,
+                           env=dict(os.environ, **old_env), capture_output=True, text=True)
+    if not check.stdout.strip().startswith(str(old)):
+        rows.append([title, "—", "—", "failed: the old tree's figkit is not the one imported", "—", target, "—"])
+        return
+    n_rows = sum(1 for ln in sheet.splitlines()[1:] if ln.strip())
+    sides = {"old": (old, old_env), "new": (new, {}), "new-off": (new, {"FIGKIT_WARM": "off"}),
+             "current": (current, {})}
+    runs = {k: [] for k in sides}
+    for i in range(sz["repeat"]):
+        for label in ("old", "new", "new-off", "current"):
+            if label == "current" and i < sz["repeat"] - 1:
+                continue          # for the record only: one run
+            root, extra = sides[label]
+            _clean_results(root)
+            plog = logs / f"build_{label}_{i}.processes"
+            plog.unlink(missing_ok=True)
+            runs[label].append(run_command([snake, "--cores", "2"], root,
+                                           logs / f"build_{label}_{i}.log", {**extra, "FIGKIT_PROCESS_LOG": str(plog)}))
+            add_server_cpu(runs[label][-1], plog)
+            figs = root / "results" / "figures"
+            made = len(list(figs.glob("*.json"))) if figs.is_dir() else 0
+            want = n_rows if label != "current" else sum(
+                1 for ln in (root / "config" / "figures.tsv").read_text(encoding="utf-8").splitlines()[1:] if ln.strip())
+            if made != want and "error" not in runs[label][-1]:
+                runs[label][-1]["error"] = f"{made} of {want} figures built"
+    best = {k: best_of(v) for k, v in runs.items()}
+    for label, what in (("old", f"the code of {BUILD_BASE}, one interpreter per figure job"),
+                        ("new", "today, figure jobs share one warm interpreter"),
+                        ("new-off", "today with FIGKIT_WARM=off (one interpreter per figure job)"),
+                        ("current", "today's full demo sheet, warm")):
+        b = best[label]
+        details[f"11 build: {what}"] = {"seconds": b.get("wall_s"), "times": [r.get("wall_s") for r in runs[label]],
+                                       "cpu_s": b.get("cpu_s"),
+                                       **({"error": b["error"]} if "error" in b else {}),
+                                       "note": "CPU: Snakemake, its jobs and the warm server with its renders; "
+                                               + (f"{b.get('interpreters')} interpreter(s) imported the pipeline, "
+                                                  f"{b.get('forks')} forked render(s)" if label != "old"
+                                                  else "one interpreter per figure job")}
+    if any("error" in best[k] for k in ("old", "new")):
+        rows.append([title, f"{n_rows} figures", "failed" if "error" in best["new"] else fs(best["new"]["wall_s"]),
+                     "failed" if "error" in best["old"] else fs(best["old"]["wall_s"]), "—", target, "—"])
+        return
+    r = best["new"]["wall_s"] / best["old"]["wall_s"]
+    rows.append([f"{title}: today vs the code of {BUILD_BASE}, the same sheet ({BUILD_BASE}'s rows) and data",
+                 f"{n_rows} figures", fs(best["new"]["wall_s"]), fs(best["old"]["wall_s"]), fr(r), target,
+                 met(r <= 0.4)])
+    cpu_new, cpu_old = best["new"].get("cpu_s"), best["old"].get("cpu_s")
+    if cpu_new and cpu_old:
+        rows.append([f"11. the same builds' CPU time (all processes, warm server included)", f"{n_rows} figures",
+                     fs(cpu_new), fs(cpu_old), fr(cpu_new / cpu_old), "— (2 cores: wall ≥ CPU / 2)", "—"])
+    if "error" not in best["new-off"]:
+        r2 = best["new-off"]["wall_s"] / best["old"]["wall_s"]
+        rows.append([f"11. the same, today with FIGKIT_WARM=off (one interpreter per job) vs {BUILD_BASE}",
+                     f"{n_rows} figures", fs(best["new-off"]["wall_s"]), fs(best["old"]["wall_s"]), fr(r2),
+                     "— (the warm interpreter's share)", "—"])
+    c = best["current"]
+    n_cur = sum(1 for ln in (current / "config" / "figures.tsv").read_text(encoding="utf-8").splitlines()[1:]
+                if ln.strip())
+    rows.append(["11. today's full demo build (today's sheet), for the record", f"{n_cur} figures",
+                 "failed" if "error" in c else fs(c["wall_s"]), "—", "—", "—", "—"])
+
+
+def add_server_cpu(res: dict, plog: Path) -> None:
+    """A warm server is detached from Snakemake (wait4 does not see it): add the CPU time it logs
+    at its end (its own and its renders'), and count the interpreters that imported figkit's
+    pipeline (FIGKIT_PROCESS_LOG; the code of 651f466 writes no such lines)."""
+    end = time.monotonic() + 10
+    text = plog.read_text() if plog.is_file() else ""
+    while "warm server" in text and " cpu_s=" not in text and time.monotonic() < end:
+        time.sleep(0.1)
+        text = plog.read_text()
+    lines = text.splitlines()
+    res["interpreters"] = sum(1 for ln in lines if ln.startswith("interpreter "))
+    res["forks"] = sum(1 for ln in lines if ln.startswith("fork "))
+    for ln in lines:
+        if " cpu_s=" in ln and "cpu_s" in res:
+            res["cpu_s"] += float(ln.rsplit("cpu_s=", 1)[1])
+
+
+def _set_option(sheet: Path, fid: str, value: str) -> None:
+    """Rewrite one row's options cell (the row is the figure's; the rest of the sheet is kept)."""
+    lines = sheet.read_text(encoding="utf-8").splitlines(keepends=True)
+    header = lines[0].rstrip("\n").split("\t")
+    col = header.index("options")
+    for i, ln in enumerate(lines):
+        cells = ln.rstrip("\n").split("\t")
+        if cells[0] == fid:
+            cells += [""] * (len(header) - len(cells))
+            cells[col] = value
+            lines[i] = "\t".join(cells) + "\n"
+    sheet.write_text("".join(lines), encoding="utf-8")
+
+
+def bench_draft(sz, work, rows, details):
+    """Benchmark 10: one sheet edit seen as a new picture.  figkit draft (already running, default
+    0.5 s polling): from writing the row to its new preview PNG on disk.  Snakemake: from writing
+    the same row to the end of `snakemake --cores 2` (which rebuilds only that figure).  The edit
+    alternates the histogram's bins between two values, so every round changes the pixels."""
+    title = f"12. one sheet edit to a new picture ({DRAFT_FIGURE}): `figkit draft` preview vs Snakemake rebuild"
+    target = "≤ 0.25"
+    root = demo_project(work / "draft")
+    logs, snake = work / "out", snakemake_exe()
+    if not (root / "data" / "readings.csv").is_file():
+        src = work / "build-new" / "data"
+        if src.is_dir():
+            shutil.copytree(src, root / "data")
+        elif "error" in run_command([sys.executable, "-m", "figkit.demo", str(root / "data")], REPO,
+                                    logs / "draft_data.log"):
+            rows.append([title, "—", "failed: demo data", "—", "—", target, "—"])
+            return
+    sheet = root / "config" / "figures.tsv"
+    values = ["bins=24", "bins=fd"]
+    # every figure built first, so that the timed `snakemake --cores 2` rebuilds only the edited one
+    first = run_command([snake, "--cores", "2"], root, logs / "draft_first.log")
+    if "error" in first:
+        rows.append([title, "—", "—", "failed: first build", "—", target, "—"])
+        return
+    sm = []
+    for i in range(sz["repeat"]):
+        t0 = time.perf_counter()
+        _set_option(sheet, DRAFT_FIGURE, values[i % 2])
+        res = run_command([snake, "--cores", "2"], root, logs / f"draft_snakemake_{i}.log")
+        res["wall_s"] = time.perf_counter() - t0
+        sm.append(res)
+    preview = root / "results" / "draft" / "000.png"
+    log = logs / "draft_loop.log"
+    fh = open(log, "w")
+    proc = subprocess.Popen([sys.executable, "-m", "figkit", "draft", DRAFT_FIGURE], cwd=root, stdout=fh,
+                            stderr=subprocess.STDOUT, env=dict(os.environ, MPLBACKEND="Agg", PYTHONHASHSEED="0"))
+    loop = []
+    done_line = f"figkit: draft: {DRAFT_FIGURE}: preview"     # printed after each round's print files
+
+    def settle(count: int) -> bool:
+        """Wait until the loop has printed ``count`` rounds (it is idle, polling again)."""
+        end = time.monotonic() + 180
+        while time.monotonic() < end and proc.poll() is None:
+            if log.read_text().count(done_line) >= count:
+                return True
+            time.sleep(0.05)
+        return False
+    try:
+        for i in range(sz["repeat"]):
+            if not settle(i + 1):
+                loop.append({"error": "the draft loop did not finish a round"})
+                break
+            before = preview.read_bytes() if preview.is_file() else b""
+            t0 = time.perf_counter()
+            _set_option(sheet, DRAFT_FIGURE, values[(i + 1) % 2])
+            end = time.monotonic() + 120
+            while time.monotonic() < end:
+                if preview.is_file() and preview.read_bytes() != before:
+                    loop.append({"wall_s": time.perf_counter() - t0})
+                    break
+                time.sleep(0.005)
+            else:
+                loop.append({"error": "no new preview within 120 s"})
+        settle(sz["repeat"] + 1)
+    finally:
+        proc.send_signal(2)
+        try:
+            proc.wait(timeout=30)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+        fh.close()
+    a, b = best_of(loop), best_of(sm)
+    details["10 figkit draft: row written to new preview PNG"] = {
+        "seconds": a.get("wall_s"), "times": [r.get("wall_s") for r in loop],
+        **({"error": a["error"]} if "error" in a else {}),
+        "note": "default polling 0.5 s (half of it on average is waiting for the next look); the print "
+                "files follow in the same process"}
+    details["10 Snakemake: row written to the end of `snakemake --cores 2`"] = {
+        "seconds": b.get("wall_s"), "times": [r.get("wall_s") for r in sm], "cpu_s": b.get("cpu_s"),
+        **({"error": b["error"]} if "error" in b else {}),
+        "note": "one figure rebuilt (PDF, PNG, SVG, sidecar, checks) through a warm interpreter started for it"}
+    if "error" in a or "error" in b:
+        rows.append([title, "1 figure", "failed" if "error" in a else fs(a["wall_s"]),
+                     "failed" if "error" in b else fs(b["wall_s"]), "—", target, "—"])
+        return
+    r = a["wall_s"] / b["wall_s"]
+    rows.append([title, "1 figure, 4 panels", fs(a["wall_s"]), fs(b["wall_s"]), fr(r), target, met(r <= 0.25)])
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="small sizes, one run each (smoke test)")
     ap.add_argument("--big", action="store_true", help="also try 1e8 rows (needs ~18 GiB free)")
     ap.add_argument("--profile", action="store_true", help="cProfile slow cases into PROFILE.md")
     ap.add_argument("--keep", metavar="DIR", help="keep (and reuse) generated data in DIR")
-    ap.add_argument("--only", default="1,2,3,4,6,7,8,9,10",
+    ap.add_argument("--only", default="1,2,3,4,6,7,8,9,10,11,12",
                     help="comma list of benchmarks (5 runs with 2; A = 6, B = 7, C = 8)")
     ap.add_argument("--out", default=str(HERE / "RESULTS.md"), help="where the table goes")
     ns = ap.parse_args(argv)
@@ -939,6 +1176,12 @@ def main(argv=None) -> int:
         if "10" in only:
             print("10. densest demo grid: job alone vs plain script ...", flush=True)
             bench_dense_job(sz, work, rows, details, data_log)
+        if "11" in only:
+            print("11. full demo build vs " + BUILD_BASE + " ...", flush=True)
+            bench_build(sz, work, rows, details, data_log)
+        if "12" in only:
+            print("12. draft loop vs Snakemake rebuild ...", flush=True)
+            bench_draft(sz, work, rows, details)
         profile_text = profile_report(profiles) if ns.profile else None
     finally:
         if not ns.keep:

@@ -35,6 +35,9 @@ def _cmd_render(args) -> int:
     together or not at all, and a figure that fails fails alone (exit 2 after the others)."""
     from .render import load_project, render
     from .workflow import settings_from_environment
+    from .warm import FORKED, note
+    if not FORKED:
+        note("interpreter", " ".join(args.id))
     project = load_project(args.project, settings_from_environment())
     out = project.config.results / "figures"
     failed = 0
@@ -559,6 +562,13 @@ class _Printable:
 
 
 def main(argv=None) -> int:
+    words = sys.argv[1:] if argv is None else list(argv)
+    if words[:1] == ["render"] and os.environ.get("FIGKIT_WARM"):
+        from . import warm       # a workflow job: hand the figure to the warm interpreter
+        if not warm.FORKED:
+            code = warm.run_client(words)
+            if code is not None:
+                return code
     saved = sys.stdout, sys.stderr
     sys.stdout, sys.stderr = _Printable(sys.stdout), _Printable(sys.stderr)
     try:

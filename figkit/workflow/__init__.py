@@ -46,6 +46,24 @@ def job_settings(settings: dict) -> None:
     os.environ[SETTINGS_VAR] = json.dumps(settings, sort_keys=True, default=str)
 
 
+def warm_jobs() -> str | None:
+    """Let this Snakemake run's figure jobs share one warm interpreter (figkit.warm): name its
+    socket, owned by this process, in the environment the jobs inherit (not in the command text,
+    which would rerun every figure).  Called each time the workflow is read, so the Snakemake that
+    runs a group job on a cluster node names a server of its own there.  ``FIGKIT_WARM=off`` in
+    the environment keeps every job in its own interpreter.  Returns the socket's path, or None."""
+    from .. import warm
+    if os.environ.get(warm.VAR, "").lower() in warm.OFF or not warm.available():
+        return None
+    try:
+        path = warm.socket_path(os.getpid())
+    except OSError:          # no private temporary folder: jobs keep their own interpreters
+        os.environ.pop(warm.VAR, None)
+        return None
+    os.environ[warm.VAR] = f"{os.getpid()}:{path}"
+    return path
+
+
 def settings_from_environment() -> dict | None:
     """The settings a workflow job was given (:func:`job_settings`), or None outside a workflow."""
     text = os.environ.get(SETTINGS_VAR)

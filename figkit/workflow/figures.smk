@@ -28,6 +28,12 @@ except FigkitError as exc:
     raise SystemExit(2)
 validate(config, schema_path("config"))          # passes now; fills Snakemake's config defaults
 figkit.workflow.job_settings(FK_CONFIG.data)      # jobs use these, overrides and all
+# ---- one warm interpreter for the figure jobs (figkit.warm) -------------------------------------
+# Each job stays one Snakemake job per figure (own exit status, log, outputs, reruns); its process
+# hands the render to a server that imported pandas and matplotlib once per Snakemake process
+# (per group job on a cluster node).  FIGKIT_WARM=off keeps one interpreter per job.
+figkit.workflow.warm_jobs()
+# ---- end of the warm-interpreter block ----------------------------------------------------------
 FK_RESULTS = FK_CONFIG["results"]
 FK_FORMATS = FK_CONFIG["formats"]
 import hashlib
