@@ -994,7 +994,7 @@ def bench_build(sz, work, rows, details, data_log):
                  met(r <= 0.4)])
     cpu_new, cpu_old = best["new"].get("cpu_s"), best["old"].get("cpu_s")
     if cpu_new and cpu_old:
-        rows.append([f"11. the same builds' CPU time (all processes, warm server included)", f"{n_rows} figures",
+        rows.append(["11. the same builds' CPU time (all processes, warm server included)", f"{n_rows} figures",
                      fs(cpu_new), fs(cpu_old), fr(cpu_new / cpu_old), "— (2 cores: wall ≥ CPU / 2)", "—"])
     if "error" not in best["new-off"]:
         r2 = best["new-off"]["wall_s"] / best["old"]["wall_s"]
