@@ -598,6 +598,8 @@ def _line_gap(ctx: Context, x: np.ndarray) -> tuple[float | None, str]:
         return None, "none: every step between x values is bridged"
     if gap != "auto":
         return float(gap), f"steps over {float(gap):g} x units break the line (gap={gap})"
+    if ctx.data.levels.get(ctx.spec.x) is not None:   # an ordered text x: positions 0, 1, 2 ...
+        return GAP_FACTOR, "auto: a level left out (a step over one place in the order) breaks the line"
     u = np.unique(x)
     if u.size < 3:
         return None, "auto: fewer than three x values, nothing to break"

@@ -753,8 +753,12 @@ def _by_part(compare, old: dict, new: dict, level: str, **kw) -> list[Change]:
     "part <letter> (<id>): ...", after the page's own (size, layout, inputs, style).  A part
     that appears or goes is a change at ``level``."""
     fig = str(new.get("id") or old.get("id") or "?")
-    page = [{k: v for k, v in sc.items() if k not in ("parts", "cautions")} for sc in (old, new)]
-    out = [c for c in compare(*page, **kw) if c.what != "chart" or c.old != c.new]
+    # The page's own cautions (a part letter touching text, ...) are compared here; each part's
+    # (copied to the page with a "part a (id): " prefix) are compared with that part below.
+    page = [{**{k: v for k, v in sc.items() if k != "parts"},
+             "cautions": [c for c in sc.get("cautions") or [] if not str(c).startswith("part ")]}
+            for sc in (old, new)]
+    out = compare(*page, **kw)
     op = {str(p.get("id")): p for p in old.get("parts") or [] if isinstance(p, dict)}
     np_ = {str(p.get("id")): p for p in new.get("parts") or [] if isinstance(p, dict)}
     for pid in [*np_, *(p for p in op if p not in np_)]:

@@ -116,6 +116,7 @@ class PartsSpec:
     lettered: bool                    # the parts carry letters (the row and house style agree)
     parts: tuple[FigureSpec, ...]     # reading order, each at its cell's width, in this style
     part_rows: tuple[SheetRow, ...]
+    own_styles: tuple[str, ...] = ()  # the house style each part has when built alone
 
     @property
     def data_paths(self) -> list[Path]:
@@ -167,12 +168,15 @@ def build_parts_spec(row: SheetRow, config: Config, rows: list[SheetRow]) -> Par
     preset, size_from = _size_preset(row, config, style, err)
     width = style.width_mm(preset, row=num, figure=fig)
     cells = page_cells(lines, width)
-    specs = []
+    specs, own_styles = [], []
     for part, (_line, _x0, w) in zip(part_rows, cells):
         try:
             spec = build_spec(part, config)
         except FigkitError as exc:
-            raise FigkitError(f"part '{part.id}' of figure '{fig}' (sheet row {num}): {exc}") from None
+            raise FigkitError(f"part '{part.id}' (sheet row {part.number}): {exc.message}", row=num,
+                              figure=fig, field=exc.field, value=exc.value,
+                              allowed=exc.allowed) from None
+        own_styles.append(spec.style.name)
         specs.append(replace(
             spec, width_mm=w, height_mm=None, style=style, formats=tuple(config["formats"]),
             letters=spec.letters and style.letters != "none",
@@ -181,14 +185,15 @@ def build_parts_spec(row: SheetRow, config: Config, rows: list[SheetRow]) -> Par
     # Parts are lettered unless the row says panel_letters=no (the column's default, "no", is
     # for panels of a chart row) or the house style letters nothing.
     lettered = not ("panel_letters" in row.given and c["panel_letters"] == "no") \
-        and style.letters != "none"
+        and style.letters != "none" and len(part_rows) > 1   # one part: nothing to tell apart
     return PartsSpec(
         id=fig, row=num, lines=lines, width_mm=width, style=style, caption=c.get("caption", ""),
         formats=tuple(config["formats"]), root=config.root, cells=dict(c),
         size_preset={"name": preset, "mm": width, "from": size_from,
                      "presets_from": "config.yaml sizes:" if config.get("sizes")
                      else f"house style '{style.name}'"},
-        lettered=lettered, parts=tuple(specs), part_rows=tuple(part_rows))
+        lettered=lettered, parts=tuple(specs), part_rows=tuple(part_rows),
+        own_styles=tuple(own_styles))
 
 
 def parts_fingerprint(row: SheetRow, config: Config, rows: list[SheetRow]) -> str:
@@ -280,7 +285,7 @@ def draw_parts(project: Project, pspec: PartsSpec):
     from matplotlib.gridspec import GridSpec
 
     from . import progress
-    from .checks import enforce_minimums, text_collisions
+    from .checks import enforce_minimums
     from .draw import TEXT_EDGE_MM, build_figure
     from .jobsize import job_size
     from .render import drawn_values, figure_record, prepare, strata_comparison, strata_note
@@ -298,7 +303,10 @@ def draw_parts(project: Project, pspec: PartsSpec):
     datas = []
     for part_row in pspec.part_rows:   # each part's data through the build's own checks
         progress.stage(f"reading the data of part '{part_row.id}'")
-        datas.append(prepare(project, part_row)[2])
+        try:
+            datas.append(prepare(project, part_row)[2])
+        except FigkitError as exc:
+            raise _part_error(exc, part_row, pspec) from None
     specs, letters = _letter_plan(pspec, [len(d.panels) for d in datas])
     stratas = [strata_comparison(s, d) for s, d in zip(specs, datas)]
     notes = [strata_note(t) if st.strata_note else None for t in stratas]
@@ -336,6 +344,7 @@ def draw_parts(project: Project, pspec: PartsSpec):
     page = Figure(figsize=(mm_to_in(W), mm_to_in(H)), dpi=72)
     FigureCanvasAgg(page)
     parts_out, stat_lines, values, colours, cautions = [], [], [], [], []
+    letter_texts, drawn_margins = [], []
     min_de = []
     inputs: list[dict] = []
     for k, (spec, data, note, box) in enumerate(zip(specs, datas, notes, boxes)):
@@ -354,10 +363,10 @@ def draw_parts(project: Project, pspec: PartsSpec):
             _sub, drawn = build_figure(placed, data, note, target=sub, floor=floor)
             part_sizes = enforce_minimums(sub, st.min_text_pt, st.min_line_pt,
                                           figure=spec.id, row=spec.row)
+            rec, lines_k, de = figure_record(project, pspec.part_rows[k], placed, data,
+                                             stratas[k], drawn, part_sizes, sizes[k], None)
         except FigkitError as exc:
             raise _part_error(exc, spec, pspec) from None
-        rec, lines_k, de = figure_record(project, pspec.part_rows[k], placed, data, stratas[k],
-                                         drawn, part_sizes, sizes[k], None)
         letter = letters[k]
         label = letter or spec.id
         for ln in lines_k:
@@ -366,8 +375,8 @@ def draw_parts(project: Project, pspec: PartsSpec):
             values.append({"part": label, **v})
         colours += [c for c in rec["colours"]["used"] if c not in colours]
         min_de.append(de)
-        own_style = pspec.part_rows[k].cells.get("style")
-        if own_style and own_style != st.name:   # one figure, one look
+        own_style = pspec.own_styles[k] if pspec.own_styles else st.name
+        if own_style != st.name:   # one figure, one look
             rec["cautions"].append(f"drawn in the combined figure's house style '{st.name}', "
                                    f"not its own '{own_style}'")
         cautions += [f"part {label} ({spec.id}): {c}" for c in rec["cautions"]]
@@ -377,15 +386,14 @@ def draw_parts(project: Project, pspec: PartsSpec):
         parts_out.append({"letter": letter,
                           "box_mm": [round(v, 3) for v in box],   # x0, top, width, height
                           **rec})
+        drawn_margins.append(drawn["margins"])
         if letter:
             # Kept TEXT_EDGE_MM off the page's edge, as every text of figkit (draw.py).
-            page.text((x0 + TEXT_EDGE_MM) / W, 1 - (y_top - band + TEXT_EDGE_MM) / H, letter,
-                      fontsize=st.title_pt + 1, fontweight="bold", ha="left", va="top")
+            letter_texts += [page.text((x0 + TEXT_EDGE_MM) / W, 1 - (y_top - band + TEXT_EDGE_MM) / H, letter,
+                      fontsize=st.title_pt + 1, fontweight="bold", ha="left", va="top")]
     page_sizes = enforce_minimums(page, st.min_text_pt, st.min_line_pt, figure=pspec.id,
                                   row=pspec.row)
-    clashes = [c for c in text_collisions(page) if any(t in (letters or []) for t in c)]
-    if clashes:
-        cautions.append(f"a part letter touches other text ('{clashes[0][1][:30]}')")
+    cautions += _letter_clashes(page, letter_texts) + _misaligned(cells, drawn_margins)
     # Per vision, the closest pair of colours within any one part (a reader tells groups
     # apart within a part; the parts' keys are separate).
     sep_de = {v: min((d[v] for d in min_de if d.get(v) is not None), default=None)
@@ -395,15 +403,54 @@ def draw_parts(project: Project, pspec: PartsSpec):
                   "cautions": cautions, "inputs": inputs, "sizes": page_sizes, "job": combined}
 
 
+def _letter_clashes(page, letter_texts) -> list[str]:
+    """A part letter's box against every other text of the page (figkit.checks' tolerance)."""
+    from .checks import _visible_texts
+    renderer = page.canvas.get_renderer()
+    mine = {id(t) for t in letter_texts}
+    others = [(t.get_text(), t.get_window_extent(renderer)) for t in _visible_texts(page)
+              if id(t) not in mine]
+    for t in letter_texts:
+        a = t.get_window_extent(renderer)
+        for text, b in others:
+            if a.x0 < b.x1 - 0.5 and b.x0 < a.x1 - 0.5 and a.y0 < b.y1 - 0.5 and b.y0 < a.y1 - 0.5:
+                return [f"part letter '{t.get_text()}' touches other text ('{text[:30]}')"]
+    return []
+
+
+def _misaligned(cells, margins, tol_mm: float = 0.1) -> list[str]:
+    """The floors make parts line up unless a part needed more room on the page than alone (a
+    taller panel can carry longer tick labels): say so when drawn edges differ by over tol_mm."""
+    out = []
+    for i in sorted({c[0] for c in cells}):
+        line = [m for c, m in zip(cells, margins) if c[0] == i]
+        for name, edge in (("top", lambda m: m.top + m.title), ("bottom", lambda m: m.bottom)):
+            spread = max(map(edge, line)) - min(map(edge, line))
+            if spread > tol_mm:
+                out.append(f"parts on line {i + 1} of the page: panel {name} edges differ by "
+                           f"{spread:.1f} mm")
+    by_x: dict = {}
+    for c, m in zip(cells, margins):
+        by_x.setdefault(round(c[1], 2), []).append(m.left)
+    for x0, lefts in by_x.items():
+        if len(lefts) > 1 and max(lefts) - min(lefts) > tol_mm:
+            out.append(f"parts starting {x0:g} mm from the left: panel left edges differ by "
+                       f"{max(lefts) - min(lefts):.1f} mm")
+    return out
+
+
 def _font(st) -> str:
     fam = st.rc.get("font.family", "DejaVu Sans")
     return fam[0] if isinstance(fam, list) else fam
 
 
-def _part_error(exc: FigkitError, spec: FigureSpec, pspec: PartsSpec) -> FigkitError:
-    return FigkitError(f"part '{spec.id}' (sheet row {spec.row}) in its {spec.width_mm:.0f} mm cell: "
-                       f"{exc.message}", row=pspec.row, figure=pspec.id, field=exc.field,
-                       value=exc.value, allowed=exc.allowed)
+def _part_error(exc: FigkitError, part, pspec: PartsSpec) -> FigkitError:
+    """A part's error, said of the combined figure (the row the user built), naming the part:
+    ``part`` is its FigureSpec (drawing: its cell's width is named) or its SheetRow (data)."""
+    cell = f" in its {part.width_mm:.0f} mm cell" if hasattr(part, "width_mm") else ""
+    number = part.row if hasattr(part, "width_mm") else part.number
+    return FigkitError(f"part '{part.id}' (sheet row {number}){cell}: {exc.message}", row=pspec.row,
+                       figure=pspec.id, field=exc.field, value=exc.value, allowed=exc.allowed)
 
 
 def parts_job_size(sizes):

@@ -281,8 +281,18 @@ def _ordered_positions(values: pd.Series, spec: FigureSpec) -> tuple[pd.Series, 
     position of each value in its order (config.yaml orders:, else natural sort), 0, 1, 2 ...:
     the line joins neighbours in that order, and a value missing in a group is a gap of two
     steps, which breaks the line (gap=auto)."""
-    levels = level_order(values, spec.x, spec)
-    position = {v: float(i) for i, v in enumerate(levels)}
+    present = level_order(values, spec.x, spec)
+    if len(present) > MAX_CATEGORIES_PER_AXIS:
+        raise spec.err(f"x field '{spec.x}' has {len(present):,} distinct values, more than one axis "
+                       "can show", field="x", value=spec.x,
+                       allowed=f"at most {MAX_CATEGORIES_PER_AXIS} categories per axis (a filter, "
+                       "or a band set derived from the field)")
+    # A declared order keeps its every level, present or not: a level the data lack is a step
+    # of two positions, which breaks the line (gap=auto), and still shows as a tick.
+    declared = [str(v) for v in spec.orders.get(spec.x) or []][:MAX_CATEGORIES_PER_AXIS]
+    levels = declared + [v for v in present if str(v) not in set(declared)]
+    index = {str(v): float(i) for i, v in enumerate(levels)}
+    position = {v: index[str(v)] for v in present}
     return values.map(position).astype(float), levels
 
 
@@ -483,6 +493,11 @@ def load_figure_data(spec: FigureSpec, rel_to: Path | None = None,
     ordered_x = None
     if spec.chart.name == "lines" and spec.x and not pd.api.types.is_numeric_dtype(frame[spec.x]) \
             and _text_in_numbers(frame, spec.x).size == frame[spec.x].notna().sum():
+        if spec.options.get("x_scale", "linear") != "linear":
+            raise spec.err("an ordered text x is drawn at positions 0, 1, 2 ..., not at values: it "
+                           "has no log scale", field="options",
+                           value=f"x_scale={spec.options['x_scale']}",
+                           allowed="x_scale=linear, or a numeric x")
         frame = frame.copy()
         frame[spec.x], ordered_x = _ordered_positions(frame[spec.x], spec)
         levels[spec.x] = ordered_x

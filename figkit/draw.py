@@ -1092,7 +1092,7 @@ def _place_legend_texts(fig) -> None:
     offsets = any(axis.offsetText.get_visible() and axis.offsetText.get_text().strip()
                   for ax in fig.axes for axis in (ax.xaxis, ax.yaxis))
     if offsets:     # (a part's sub-figure is drawn by its page)
-        fig.get_figure(root=True).draw_without_rendering()
+        fig.figure.draw_without_rendering()   # .figure: the root Figure (also on matplotlib 3.9)
         return
     legends = list(fig.legends) + [leg for ax in fig.axes if (leg := ax.get_legend()) is not None]
     if legends:

@@ -93,7 +93,11 @@ def spec_from_cells(cells: dict, project: Project | str | Path = ".") -> FigureS
     """A spec from a dict of sheet cells (as a notebook would write a row), in a project."""
     proj = project if isinstance(project, Project) else load_project(project)
     clean = {k: str(v) for k, v in cells.items() if v not in (None, "")}
-    return build_spec(check_row(None, clean), proj.config)   # no sheet row to name
+    row = check_row(None, clean)                               # no sheet row to name
+    if row.error is None and "parts" in row.cells:   # a figure made of parts (figkit.compose)
+        from .compose import build_parts_spec
+        return build_parts_spec(row, proj.config, proj.rows)
+    return build_spec(row, proj.config)
 
 
 def _stat_line(panel, spec: FigureSpec, x, y) -> dict:
@@ -201,8 +205,12 @@ def figure(row_or_id, project: Project | str | Path = "."):
     spec = proj.spec(row_or_id) if isinstance(row_or_id, str) else spec_from_cells(row_or_id, proj)
     if hasattr(spec, "parts"):   # a figure made of parts (figkit.compose)
         from .compose import draw_parts
-        with mpl.rc_context(spec.style.rc):
-            return draw_parts(proj, spec)[0]
+        with mpl.rc_context(spec.style.rc), warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            page, drawn = draw_parts(proj, spec)
+        for note in drawn["cautions"] + warning_notes(caught):   # as in a build
+            log.warning("%s: %s", spec.id, note)
+        return page
     data = load_figure_data(spec, stream_above_bytes=int(proj.config["stream_above_mb"] * 2 ** 20))
     from .draw import build_figure
     with mpl.rc_context(spec.style.rc), warnings.catch_warnings(record=True) as caught:

@@ -137,3 +137,44 @@ def test_ordered_text_x_without_a_declared_order_is_cautioned(tmp_path):
     root = write_penguin_project(tmp_path, PENGUIN_SHEET)
     car = render(load_project(root), "mass-by-island")
     assert any("no order under orders:" in c and "island" in c for c in car["cautions"])
+
+
+def test_ordered_text_x_keeps_declared_levels_the_data_lack(tmp_path):
+    """A level declared under orders: but absent from the data (Biscoe removed from the Palmer
+    penguins) keeps its place: every line steps over it in two positions and so breaks there,
+    and its tick is still drawn.  Without an order the natural order is used (Biscoe, Dream,
+    Torgersen), and a log scale on an ordered text x is refused in one line."""
+    from conftest import write_penguin_project
+    from palmerpenguins import load_penguins
+    sheet = PENGUIN_SHEET.replace('not (species == "Adelie" and island == "Biscoe")',
+                                  'island != "Biscoe"')
+    root = write_penguin_project(tmp_path / "declared", sheet)
+    order = ["Torgersen", "Biscoe", "Dream"]
+    with open(root / "config" / "config.yaml", "a") as fh:
+        fh.write(f"orders:\n  island: {json.dumps(order)}\n")
+    car = render(load_project(root), "mass-by-island")
+    adelie = next(g for g in car["panels"][0]["groups"] if g["group"] == "Adelie")
+    assert [pt["x_label"] for pt in adelie["per_x"]] == ["Torgersen", "Dream"]
+    assert adelie["segments"] == 2
+    assert [t.get_text() for t in figure("mass-by-island", root).axes[0].get_xticklabels()] == order
+
+    root = write_penguin_project(tmp_path / "natural", PENGUIN_SHEET)
+    car = render(load_project(root), "mass-by-island")
+    df = load_penguins()
+    seen = {pt["x_label"] for g in car["panels"][0]["groups"] for pt in g["per_x"]}
+    assert sorted(seen) == sorted(df["island"].unique())
+    for g in car["panels"][0]["groups"]:
+        labels = [pt["x_label"] for pt in g["per_x"]]
+        assert labels == sorted(labels)           # natural order: alphabetical for these names
+
+    bad = write_penguin_project(tmp_path / "log", PENGUIN_SHEET.replace(
+        "\tfilter\n", "\tfilter\toptions\n").replace('"Biscoe")\n', '"Biscoe")\tx_scale=log10\n'))
+    with pytest.raises(FigkitError, match="ordered text x .* has no log scale"):
+        render(load_project(bad), "mass-by-island")
+
+
+def test_whole_number_x_gets_whole_number_ticks(project):
+    """Months 1-12 (the constructed series above): every x tick label is a whole number."""
+    fig = figure("monthly", project)
+    labels = [t.get_text() for t in fig.axes[0].get_xticklabels() if t.get_text()]
+    assert labels and all(lab.lstrip("−-").isdigit() for lab in labels), labels

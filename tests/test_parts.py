@@ -182,7 +182,9 @@ def test_editing_a_part_reruns_the_combined_figure_and_only_that_part(built_demo
     ("mayfly-means, no-such-row", {}, "a part names no row of the sheet"),
     ("mayfly-means, river-overview", {}, "a part must be a chart row"),
     ("mayfly-means", {"dataset": "readings"}, "takes its data and chart from its parts"),
-    ("mayfly-means,,oxygen-months", {}, "badly formed value"),
+    ("mayfly-means,,oxygen-months", {}, "an empty place in the parts list"),
+    ("mayfly-means, oxygen-months, mayfly-means", {}, "a part appears twice"),
+    ("mayfly-means, no such", {}, "a part is not a figure id"),
     ("oxygen-months / turbidity-log / taxa-counts / conductivity-catchments", {}, "mm of height"),
 ])
 def test_bad_parts_rows_fail_alone_in_one_line(built_demo, tmp_path, parts, extra, message):
@@ -207,6 +209,25 @@ def test_bad_parts_rows_fail_alone_in_one_line(built_demo, tmp_path, parts, extr
         lint = subprocess.run([sys.executable, "-m", "figkit", "lint"], cwd=project,
                               capture_output=True, text=True)
         assert lint.returncode == 2 and message in lint.stderr
+
+
+def test_a_part_whose_data_fail_names_the_combined_figure_and_the_part(tmp_path):
+    """A part's data error (a column the data lack) is said of the combined figure the user
+    built, naming the part and its row, in one line; nothing is written.  A figure of one part
+    has no letter (Palmer penguins, as above)."""
+    from conftest import write_penguin_project
+    from figkit.render import load_project, render
+    sheet = PENGUIN_PARTS.replace("flipper_length_mm\tbody_mass_g", "flipper_length_mm\tno_such_col")
+    root = write_penguin_project(tmp_path / "bad", sheet, formats="[png]")
+    with pytest.raises(FigkitError) as caught:
+        render(load_project(root), "penguin-page")
+    text = str(caught.value)
+    assert "figure 'penguin-page'" in text and "part 'mass-flipper' (sheet row 2)" in text
+    assert "no_such_col" in text and "\n" not in text
+    assert not (root / "results" / "figures" / "penguin-page.png").exists()
+    one = PENGUIN_PARTS.replace("mass-flipper, mass-by-island / bill-by-species", "mass-by-island")
+    root = write_penguin_project(tmp_path / "one", one, formats="[png]")
+    assert [p["letter"] for p in render(load_project(root), "penguin-page")["parts"]] == [None]
 
 
 def test_compare_names_the_part_that_changed(built_demo):
