@@ -686,6 +686,7 @@ def draw_lines(ax, panel: Panel, ctx: Context) -> dict:
         for g in groups:
             for pt in g["per_x"]:
                 pt["x_label"] = shown(ordered[int(pt["x"])])
+            g["break_labels"] = [shown(ordered[int(b)]) for b in g["breaks"]]   # breaks: positions
     elif sh.get("whole_x"):
         from matplotlib.ticker import MaxNLocator
         ax.xaxis.set_major_locator(MaxNLocator(integer=True))

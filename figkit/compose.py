@@ -295,11 +295,7 @@ def draw_parts(project: Project, pspec: PartsSpec):
     limit = int(project.config["stream_above_mb"] * 2 ** 20)
     sizes = [job_size(s, limit) for s in pspec.parts]
     combined = parts_job_size(sizes)
-    ceiling = project.config.get("max_mem_mb")
-    if ceiling is not None and combined.mem_mb > ceiling:
-        raise pspec.err(f"the parts together need about {combined.mem_mb} MB, over the memory "
-                        f"ceiling max_mem_mb: {ceiling:g}", field="parts", value=pspec.cells["parts"],
-                        allowed=f"parts within {ceiling:g} MB together (filters, or a larger ceiling)")
+    check_parts_ceiling(pspec, combined, project.config.get("max_mem_mb"))
     datas = []
     for part_row in pspec.part_rows:   # each part's data through the build's own checks
         progress.stage(f"reading the data of part '{part_row.id}'")
@@ -451,6 +447,16 @@ def _part_error(exc: FigkitError, part, pspec: PartsSpec) -> FigkitError:
     number = part.row if hasattr(part, "width_mm") else part.number
     return FigkitError(f"part '{part.id}' (sheet row {number}){cell}: {exc.message}", row=pspec.row,
                        figure=pspec.id, field=exc.field, value=exc.value, allowed=exc.allowed)
+
+
+def check_parts_ceiling(pspec: PartsSpec, size, ceiling_mb) -> None:
+    """Refuse, in one line, a figure whose parts together need more than ``max_mem_mb`` (the
+    workflow checks when it reads the sheet, the job again before reading any data)."""
+    if ceiling_mb is not None and size.mem_mb > ceiling_mb:
+        raise pspec.err(f"the parts together need about {size.mem_mb} MB, over the memory "
+                        f"ceiling max_mem_mb: {ceiling_mb:g}", field="parts",
+                        value=pspec.cells["parts"],
+                        allowed=f"parts within {ceiling_mb:g} MB together (filters, or a larger ceiling)")
 
 
 def parts_job_size(sizes):

@@ -831,6 +831,9 @@ def _up_to_date_check(sidecar: Path, project, spec) -> dict:
         changed.append("its data files (another set)")
     if row_sha256(row.cells) != record.get("row_sha256"):
         changed.append("its sheet row")
+    for part, now_row in zip(record.get("parts") or [], getattr(spec, "part_rows", ())):
+        if part.get("id") != now_row.id or part.get("row_sha256") != row_sha256(now_row.cells):
+            changed.append(f"the sheet row of its part '{now_row.id}'")
     style = record.get("style") or {}
     if style.get("name") != spec.style.name:
         changed.append(f"its house style ({style.get('name')} -> {spec.style.name})")
@@ -838,7 +841,7 @@ def _up_to_date_check(sidecar: Path, project, spec) -> dict:
         changed += [f"style file {name}" for name, digest in spec.style.digest().items()
                     if (style.get("files") or {}).get(name) != digest]
     # The fingerprint also holds the row: settings are named only when the row is unchanged.
-    if ("its sheet row" not in changed and record.get("fingerprint") is not None
+    if (not any("sheet row" in c for c in changed) and record.get("fingerprint") is not None
             and record["fingerprint"] != (parts_fingerprint(row, project.config, project.rows)
                                           if hasattr(spec, "parts") else fingerprint(row, project.config))):
         changed.append("settings it reads in config.yaml (or figkit's version)")

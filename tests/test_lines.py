@@ -155,7 +155,7 @@ def test_ordered_text_x_keeps_declared_levels_the_data_lack(tmp_path):
     car = render(load_project(root), "mass-by-island")
     adelie = next(g for g in car["panels"][0]["groups"] if g["group"] == "Adelie")
     assert [pt["x_label"] for pt in adelie["per_x"]] == ["Torgersen", "Dream"]
-    assert adelie["segments"] == 2
+    assert adelie["segments"] == 2 and adelie["break_labels"] == ["Dream"]
     assert [t.get_text() for t in figure("mass-by-island", root).axes[0].get_xticklabels()] == order
 
     root = write_penguin_project(tmp_path / "natural", PENGUIN_SHEET)

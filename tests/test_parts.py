@@ -171,12 +171,30 @@ def test_editing_a_part_reruns_the_combined_figure_and_only_that_part(built_demo
     sheet.write_text(original.replace("Mean count of mayflies per kick sample",
                                       "Mean mayflies per kick sample"), encoding="utf-8")
     assert planned() == {"mayfly-means", COMBINED}
+    pre = subprocess.run([sys.executable, "-m", "figkit", "preflight", COMBINED], cwd=project,
+                         capture_output=True, text=True)
+    assert pre.returncode == 1 and "the sheet row of its part 'mayfly-means'" in pre.stdout, pre.stdout
     sheet.write_text(original.replace("Invertebrates counted per taxon group",
                                       "Invertebrates per taxon group"), encoding="utf-8")
     assert planned() == {"taxa-counts"}
 
 
 # ------------------------------------------------------------------ mistakes, one line each
+
+def test_the_parts_memory_together_is_checked_when_the_workflow_reads_the_sheet(built_demo):
+    """Each part fits under max_mem_mb alone, the parts together do not: Snakemake's dry run says
+    so for the combined figure alone, in one line, before anything is submitted (the estimates
+    are figkit.jobsize's, read from the dry run's own listing)."""
+    import json as _json
+    parts = [_json.loads((built_demo / "results" / "figures" / f"{p}.json").read_text())
+             ["resources"]["mem_mb"] for p in PARTS]
+    together = 400 + sum(m - 400 for m in parts)        # figkit.jobsize.BASE_MB once
+    ceiling = max(parts)                                  # every part fits alone
+    assert together > ceiling
+    proc = snakemake(built_demo, "-n", "--config", f"max_mem_mb={ceiling}", check=False)
+    lines = [ln for ln in proc.stderr.splitlines() if "over the memory ceiling" in ln]
+    assert lines and all(f"figure '{COMBINED}'" in ln and "parts together" in ln for ln in lines)
+
 
 @pytest.mark.parametrize("parts, extra, message", [
     ("mayfly-means, no-such-row", {}, "a part names no row of the sheet"),

@@ -11,7 +11,8 @@ import figkit
 import figkit.workflow
 import figkit.workflow.recover
 import figkit.workflow.report
-from figkit.compose import build_parts_spec, is_parts, parts_fingerprint, parts_job_size
+from figkit.compose import (build_parts_spec, check_parts_ceiling, is_parts, parts_fingerprint,
+                            parts_job_size)
 from figkit.errors import FigkitError
 from figkit.jobsize import check_ceiling, job_size
 from figkit.sheet import read_sheet, schema_path, validate_config
@@ -58,6 +59,7 @@ def _spec(rid):
         try:
             if is_parts(FK_BY_ID[rid]):   # a figure made of other rows (figkit.compose)
                 spec = build_parts_spec(FK_BY_ID[rid], FK_CONFIG, FK_ROWS)
+                check_parts_ceiling(spec, _size(spec), FK_CONFIG.get("max_mem_mb"))
             else:
                 spec = build_spec(FK_BY_ID[rid], FK_CONFIG)
                 check_ceiling(spec, _size(spec), FK_CONFIG.get("max_mem_mb"))
