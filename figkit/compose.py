@@ -402,6 +402,7 @@ def draw_parts(project: Project, pspec: PartsSpec):
 def _letter_clashes(page, letter_texts) -> list[str]:
     """A part letter's box against every other text of the page (figkit.checks' tolerance)."""
     from .checks import _visible_texts
+    from .draw import _overlap
     renderer = page.canvas.get_renderer()
     mine = {id(t) for t in letter_texts}
     others = [(t.get_text(), t.get_window_extent(renderer)) for t in _visible_texts(page)
@@ -409,7 +410,7 @@ def _letter_clashes(page, letter_texts) -> list[str]:
     for t in letter_texts:
         a = t.get_window_extent(renderer)
         for text, b in others:
-            if a.x0 < b.x1 - 0.5 and b.x0 < a.x1 - 0.5 and a.y0 < b.y1 - 0.5 and b.y0 < a.y1 - 0.5:
+            if _overlap(a, b):
                 return [f"part letter '{t.get_text()}' touches other text ('{text[:30]}')"]
     return []
 

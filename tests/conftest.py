@@ -22,18 +22,30 @@ def copy_project(dest: Path) -> Path:
     return dest
 
 
+def sheet_text(header: list[str], rows: list[list[str]]) -> str:
+    """A figure sheet (tab-separated, header first) from a header and rows of cells."""
+    return "\n".join("\t".join(r) for r in [header, *rows]) + "\n"
+
+
+def write_project(root: Path, sheet: str, datasets: dict, formats: str = "[png]") -> Path:
+    """A project at ``root``: the shipped house styles, each data frame of ``datasets`` (name ->
+    pandas DataFrame) as data/<name>.csv, and the given figure sheet."""
+    (root / "config").mkdir(parents=True)
+    (root / "data").mkdir()
+    shutil.copytree(REPO / "figkit" / "styles", root / "styles")
+    for name, frame in datasets.items():
+        frame.to_csv(root / "data" / f"{name}.csv", index=False)
+    names = "".join(f"  {name}: data/{name}.csv\n" for name in datasets)
+    (root / "config" / "config.yaml").write_text(f"datasets:\n{names}formats: {formats}\n")
+    (root / "config" / "figures.tsv").write_text(sheet)
+    return root
+
+
 def write_penguin_project(root: Path, sheet: str, formats: str = "[png]") -> Path:
     """A project over the Palmer penguins data (Gorman, Williams & Fraser 2014, as shipped by
     the palmerpenguins package) with the given figure sheet."""
     from palmerpenguins import load_penguins
-    (root / "config").mkdir(parents=True)
-    (root / "data").mkdir()
-    shutil.copytree(REPO / "figkit" / "styles", root / "styles")
-    load_penguins().to_csv(root / "data" / "penguins.csv", index=False)
-    (root / "config" / "config.yaml").write_text(
-        f"datasets:\n  penguins: data/penguins.csv\nformats: {formats}\n")
-    (root / "config" / "figures.tsv").write_text(sheet)
-    return root
+    return write_project(root, sheet, {"penguins": load_penguins()}, formats)
 
 
 def make_demo_data(project: Path, scale: str = DEMO_SCALE) -> None:

@@ -8,24 +8,23 @@ matplotlib figure the notebook API returns.
 from __future__ import annotations
 
 import json
-import shutil
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 
+from conftest import sheet_text, write_project
 from figkit.errors import FigkitError
 from figkit.render import figure, load_project, render
 
 REPO = Path(__file__).resolve().parents[1]
 
-SHEET = "\t".join(["id", "dataset", "chart", "x", "y", "colour", "options"]) + "\n" + "\n".join(
-    "\t".join(r) for r in [
+SHEET = sheet_text(["id", "dataset", "chart", "x", "y", "colour", "options"], [
         ["monthly", "obs", "lines", "month", "level", "site", ""],
         ["monthly-bridged", "obs", "lines", "month", "level", "site", "gap=none"],
         ["monthly-bad", "obs", "lines", "month", "level", "site", "gap=-2"],
-    ]) + "\n"
+    ])
 
 
 @pytest.fixture(scope="module")
@@ -43,14 +42,7 @@ def frame() -> pd.DataFrame:
 
 @pytest.fixture(scope="module")
 def project(tmp_path_factory, frame) -> Path:
-    root = tmp_path_factory.mktemp("lines")
-    (root / "config").mkdir()
-    (root / "data").mkdir()
-    shutil.copytree(REPO / "figkit" / "styles", root / "styles")
-    frame.to_csv(root / "data" / "obs.csv", index=False)
-    (root / "config" / "config.yaml").write_text("datasets:\n  obs: data/obs.csv\nformats: [png]\n")
-    (root / "config" / "figures.tsv").write_text(SHEET)
-    return root
+    return write_project(tmp_path_factory.mktemp("lines"), SHEET, {"obs": frame})
 
 
 def test_per_x_means_match_pandas_and_scipy(project, frame):
@@ -96,9 +88,9 @@ def test_bad_gap_is_one_line_error(project):
 
 # ---------------------------------------------------------------------------- ordered text x
 
-PENGUIN_SHEET = "\t".join(["id", "dataset", "chart", "x", "y", "colour", "filter"]) + "\n" + "\t".join(
+PENGUIN_SHEET = sheet_text(["id", "dataset", "chart", "x", "y", "colour", "filter"], [
     ["mass-by-island", "penguins", "lines", "island", "body_mass_g", "species",
-     'not (species == "Adelie" and island == "Biscoe")']) + "\n"
+     'not (species == "Adelie" and island == "Biscoe")']])
 
 
 def test_ordered_text_x_follows_the_declared_order_and_breaks_at_a_missing_value(tmp_path):

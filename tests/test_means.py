@@ -21,17 +21,16 @@ from figkit import stats
 from figkit.errors import FigkitError
 from figkit.render import load_project, render
 
-from conftest import write_penguin_project
+from conftest import sheet_text, write_penguin_project
 
 REPO = Path(__file__).resolve().parents[1]
 
-SHEET = "\t".join(["id", "dataset", "chart", "x", "y", "colour", "strata", "options"]) + "\n" + "\n".join(
-    "\t".join(r) for r in [
+SHEET = sheet_text(["id", "dataset", "chart", "x", "y", "colour", "strata", "options"], [
         ["mass-means", "penguins", "means", "species", "body_mass_g", "sex", "", "points=auto"],
         ["mass-means-boot", "penguins", "means", "species", "body_mass_g", "", "island",
          "interval=bootstrap; resamples=2000; seed=7"],
         ["mass-means-bad", "penguins", "means", "species", "body_mass_g", "", "", "resamples=10"],
-    ]) + "\n"
+    ])
 
 
 @pytest.fixture(scope="module")

@@ -20,7 +20,7 @@ import pandas as pd
 import pytest
 import yaml
 
-from conftest import REPO, snakemake
+from conftest import REPO, sheet_text, snakemake
 from figkit.compose import PART_GAP_MM, page_boxes, page_cells, parse_parts
 from figkit.errors import FigkitError
 
@@ -275,8 +275,8 @@ def test_the_readme_example_row_is_in_the_demo_sheet():
     assert "parts" in (REPO / "config" / "README.md").read_text(encoding="utf-8")
 
 
-PENGUIN_PARTS = "\t".join(["id", "dataset", "chart", "x", "y", "strata", "panel_letters", "style",
-                           "parts"]) + "\n" + "\n".join("\t".join(r) for r in [
+PENGUIN_PARTS = sheet_text(["id", "dataset", "chart", "x", "y", "strata", "panel_letters", "style",
+                           "parts"], [
     ["mass-flipper", "penguins", "scatter", "flipper_length_mm", "body_mass_g", "", "", "", ""],
     ["bill-by-species", "penguins", "box", "sex", "bill_length_mm", "species", "yes", "compact", ""],
     ["mass-by-island", "penguins", "violin", "island", "body_mass_g", "", "", "", ""],

@@ -20,12 +20,11 @@ from palmerpenguins import load_penguins
 
 from figkit.render import load_project, render
 
-from conftest import write_penguin_project
+from conftest import sheet_text, write_penguin_project
 
 REPO = Path(__file__).resolve().parents[1]
 
-SHEET = "\t".join(["id", "dataset", "chart", "x", "y", "colour", "strata", "options"]) + "\n" + "\n".join(
-    "\t".join(r) for r in [
+SHEET = sheet_text(["id", "dataset", "chart", "x", "y", "colour", "strata", "options"], [
         ["flipper-fd", "penguins", "histogram", "flipper_length_mm", "", "", "", ""],
         ["flipper-fd-exact", "penguins", "histogram", "flipper_length_mm", "", "", "", "edges=exact"],
         ["mass-sturges", "penguins", "histogram", "body_mass_g", "", "", "species", "bins=sturges"],
@@ -37,7 +36,7 @@ SHEET = "\t".join(["id", "dataset", "chart", "x", "y", "colour", "strata", "opti
         ["island-shares", "penguins", "shares", "island", "", "species", "", "interval=wilson"],
         ["species-tiles", "penguins", "tiles", "island", "species", "", "", ""],
         ["bill-mass-sex", "penguins", "scatter", "bill_length_mm", "body_mass_g", "sex", "", ""],
-    ]) + "\n"
+    ])
 
 
 @pytest.fixture(scope="module")

@@ -12,28 +12,27 @@ from __future__ import annotations
 import json
 import math
 import re
-import shutil
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 
+from conftest import sheet_text, write_project
 from figkit import scales
 from figkit.errors import FigkitError
 from figkit.render import load_project, render
 
 REPO = Path(__file__).resolve().parents[1]
 
-SHEET = "\t".join(["id", "dataset", "chart", "x", "y", "strata", "trend", "options"]) + "\n" + "\n".join(
-    "\t".join(r) for r in [
+SHEET = sheet_text(["id", "dataset", "chart", "x", "y", "strata", "trend", "options"], [
         ["hex-loglog", "skew", "hexbins", "dose", "titre", "", "", "x_scale=log10; y_scale=log10; cells=12"],
         ["exp-line", "skew", "scatter", "day", "titre", "site", "line", "y_scale=log10"],
         ["hist-log", "skew", "histogram", "titre", "", "", "", "x_scale=log10; bins=fd"],
         ["box-log", "skew", "box", "site", "titre", "", "", "y_scale=log10"],
         ["dens-sym", "skew", "density", "change", "", "", "", "x_scale=signed-log; threshold=2"],
         ["bad-threshold", "skew", "histogram", "titre", "", "", "", "threshold=2"],
-    ]) + "\n"
+    ])
 
 
 @pytest.fixture(scope="module")
@@ -53,15 +52,7 @@ def frame() -> pd.DataFrame:
 
 @pytest.fixture(scope="module")
 def project(tmp_path_factory, frame) -> Path:
-    root = tmp_path_factory.mktemp("scales")
-    (root / "config").mkdir()
-    (root / "data").mkdir()
-    shutil.copytree(REPO / "figkit" / "styles", root / "styles")
-    frame.to_csv(root / "data" / "skew.csv", index=False)
-    (root / "config" / "config.yaml").write_text(
-        "datasets:\n  skew: data/skew.csv\nformats: [png, svg]\n")
-    (root / "config" / "figures.tsv").write_text(SHEET)
-    return root
+    return write_project(tmp_path_factory.mktemp("scales"), SHEET, {"skew": frame}, "[png, svg]")
 
 
 def _built(project: Path, fig_id: str) -> dict:
