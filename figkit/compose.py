@@ -233,12 +233,12 @@ def render_parts(project: Project, row: SheetRow, granted: dict | None = None) -
     import matplotlib as mpl
     mpl.use("Agg", force=True)
     from . import provenance as P
-    from .render import _stats_csv, _values_csv, log, rebuild_command, write_figure
+    from .render import _stats_csv, _values_csv, collector_paused, log, rebuild_command, write_figure
 
     pspec = build_parts_spec(row, project.config, project.rows)
     st = pspec.style
     # Python warnings while drawing and saving become cautions, as for any figure (render).
-    with mpl.rc_context(st.rc), warnings.catch_warnings(record=True) as caught:
+    with mpl.rc_context(st.rc), warnings.catch_warnings(record=True) as caught, collector_paused():
         warnings.simplefilter("always")
         page, d = draw_parts(project, pspec)
         W, H = pspec.width_mm, d["height"]

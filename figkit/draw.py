@@ -67,18 +67,34 @@ def _in_view(axis, locs) -> np.ndarray:
 
 
 def _ticks_now(axis, major: bool) -> tuple[np.ndarray, list]:
-    """Place an axis' ticks for its current size and limits, as a draw would, and return the
-    locations with their tick objects (the axis keeps extra tick objects from earlier sizes)."""
-    if major:
-        locs, fmt, get = axis.get_majorticklocs(), axis.get_major_formatter(), axis.get_major_ticks
-    else:
-        locs, fmt, get = axis.get_minorticklocs(), axis.get_minor_formatter(), axis.get_minor_ticks
-    locs = np.asarray(locs, dtype=float)
-    ticks = get(len(locs))
-    for tick, loc, text in zip(ticks, locs, fmt.format_ticks(locs)):
+    """Place the ticks an axis draws for its current size and limits, as a draw would, and return
+    their locations (inside the view only) with their tick objects.
+
+    Labels are formatted from every location the locator gives, as a draw formats them (a
+    formatter's precision and offset look at all of them), but only ticks inside the view get
+    objects: a locator proposes one or two beyond each end, and each matplotlib Tick costs about
+    a millisecond to make.  Once the ticks are pinned (:func:`_pin_ticks`) the locations are
+    exactly the ones inside the view, so a draw then uses the same tick objects in the same order.
+    A repeated call with nothing changed (limits, axis box, locator, formatter, and the ticks
+    still where they were put) returns the placement made before."""
+    locator, fmt = ((axis.get_major_locator(), axis.get_major_formatter()) if major else
+                    (axis.get_minor_locator(), axis.get_minor_formatter()))
+    key = (locator, fmt, tuple(axis.get_view_interval()), tuple(axis.axes.bbox.bounds))
+    memo = axis.__dict__.setdefault("_figkit_ticks", {})
+    seen = memo.get(major)
+    if seen is not None and seen[0] == key and all(
+            t.get_loc() == loc for t, loc in zip(seen[2], seen[1])):
+        return seen[1], seen[2]
+    locs = np.asarray(axis.get_majorticklocs() if major else axis.get_minorticklocs(), dtype=float)
+    texts = fmt.format_ticks(locs)
+    keep = _in_view(axis, locs)
+    locs = locs[keep]
+    ticks = (axis.get_major_ticks if major else axis.get_minor_ticks)(len(locs))
+    for tick, loc, text in zip(ticks, locs, (t for t, k in zip(texts, keep) if k)):
         tick.update_position(loc)
         tick.label1.set_text(text)
         tick.label2.set_text(text)
+    memo[major] = (key, locs, ticks)
     return locs, ticks
 
 
@@ -90,10 +106,8 @@ def _drawn_tick_labels(axis, renderer=None) -> list:
         params = axis.get_tick_params(which="major" if major else "minor")
         if not any(params.get(k) for k in ("labelleft", "labelright", "labelbottom", "labeltop")):
             continue   # labels switched off (inner panels of a shared axis): nothing to place
-        locs, ticks = _ticks_now(axis, major)
-        for tick, keep in zip(ticks, _in_view(axis, locs)):
-            if keep:
-                out += [t for t in (tick.label1, tick.label2) if t.get_visible() and t.get_text().strip()]
+        for tick in _ticks_now(axis, major)[1]:
+            out += [t for t in (tick.label1, tick.label2) if t.get_visible() and t.get_text().strip()]
     return out
 
 
@@ -431,10 +445,9 @@ def _pin_ticks(fig) -> None:
         for axis in (ax.xaxis, ax.yaxis):
             for major in (True, False):
                 locs, ticks = _ticks_now(axis, major)
-                keep = _in_view(axis, locs)
-                labels = [t.label1.get_text() for t, k in zip(ticks, keep) if k]
+                labels = [t.label1.get_text() for t in ticks]
                 offset = axis.get_major_formatter().get_offset() if major else ""
-                plan.append((axis, major, locs[keep], labels, offset))
+                plan.append((axis, major, locs, labels, offset))
     for axis, major, locs, labels, offset in plan:
         fixed = FixedFormatter(labels)
         fixed.set_offset_string(offset)
