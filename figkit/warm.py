@@ -28,6 +28,7 @@ interpreter starts.
 from __future__ import annotations
 
 import fcntl
+import gc
 import json
 import os
 import signal
@@ -185,12 +186,17 @@ def serve(path: str, owner: int) -> None:
     if __name__ != "figkit.warm":      # see the __main__ block: never serve from a second copy
         raise RuntimeError("figkit.warm.serve must run in the module figkit.warm")
     os.environ.setdefault("MPLBACKEND", "Agg")     # as cli.main does before anything is drawn
+    # The imported modules are frozen out of the cyclic collector before any fork, as Python's gc
+    # documentation advises for fork without exec: a render's collections then neither walk the
+    # pipeline's hundred thousand long-lived objects nor touch (and so copy) their memory pages.
+    gc.disable()
     import importlib
     for name in PRELOAD:
         try:
             importlib.import_module(name)
         except ImportError:    # an optional piece missing: the render imports (or misses) it itself
             pass
+    gc.freeze()
     note("interpreter", "warm server")
     listener = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
     listener.bind(path)           # made only now, so a connection means the imports are done
@@ -268,6 +274,7 @@ def _child(conn: socket.socket) -> None:
             os._exit(1)
         global FORKED
         FORKED = True
+        gc.enable()            # the server runs without it (above); a render collects as usual
         for target, fd in enumerate(fds):
             os.dup2(fd, target)
             os.close(fd)
