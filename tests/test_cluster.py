@@ -213,6 +213,30 @@ def test_a_figure_that_fails_in_a_group_job_fails_alone(tmp_path):
                 for p in figures.glob(f"{fid}.*")} == files, fid
 
 
+def test_keep_going_on_node_against_snakemakes_settings():
+    """figkit.workflow.keep_going_on_node on Snakemake's own ExecutionSettings: set in remote mode
+    only; a settings object that lacks the field or refuses it (a frozen dataclass) is left as it
+    is, without an error, as is a workflow whose settings are not in place yet (None)."""
+    import dataclasses
+    from types import SimpleNamespace
+    from snakemake.settings.types import ExecutionSettings
+    from figkit.workflow import keep_going_on_node
+
+    def flow(settings, remote=True):
+        return SimpleNamespace(remote_exec=remote, execution_settings=settings)
+    remote, main = ExecutionSettings(), ExecutionSettings()
+    assert keep_going_on_node(flow(remote)) and remote.keep_going is True
+    assert not keep_going_on_node(flow(main, remote=False)) and main.keep_going is False
+
+    @dataclasses.dataclass(frozen=True)
+    class Frozen:
+        keep_going: bool = False
+    frozen = Frozen()
+    assert not keep_going_on_node(flow(frozen)) and frozen.keep_going is False
+    assert not keep_going_on_node(flow(SimpleNamespace()))
+    assert not keep_going_on_node(flow(None))
+
+
 def _sheet_rows(project) -> int:
     """Figures of the demo sheet: its rows below the header."""
     lines = (project / "config" / "figures.tsv").read_text(encoding="utf-8").splitlines()

@@ -190,8 +190,9 @@ def test_half_written_figure_under_an_incomplete_marker_is_built_again(project):
 def test_with_keep_incomplete_a_half_written_figure_without_marker_is_built_again(project):
     """--keep-incomplete (the cluster profiles): Snakemake keeps a failed job's files and clears
     their markers, so the start of a run checks every figure against its sidecar's hashes: a
-    PDF of another build, with no marker at all, is removed and built again byte-identical; a whole
-    figure is left as it is (its files not rewritten)."""
+    PDF of another build with no marker at all (as a killed `figkit render` run by hand leaves
+    it) is removed and built again byte-identical; a whole figure is left as it is (its files not
+    rewritten)."""
     figures = project / "results" / "figures"
     assert not list((project / ".snakemake" / "incomplete").rglob("*"))
     pdf = figures / "taxa-by-season.pdf"
