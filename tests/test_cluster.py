@@ -33,6 +33,16 @@ def _with_profiles(project: Path) -> Path:
     return project
 
 
+def _stand_in(project: Path, *args: str, check: bool = True) -> subprocess.CompletedProcess:
+    """The cluster-generic profile with the stand-in batch system (tests/cluster/), its status
+    polled every second (Snakemake's default is 10 s)."""
+    return snakemake(project, "--profile", "profiles/cluster-generic",
+                     "--cluster-generic-submit-cmd", f"sh {CLUSTER / 'submit.sh'}",
+                     "--cluster-generic-status-cmd", f"sh {CLUSTER / 'status.sh'}",
+                     "--cluster-generic-cancel-cmd", "true", "--latency-wait", "10",
+                     "--seconds-between-status-checks", "1", *args, check=check)
+
+
 def _panels(folder: Path) -> dict:
     return {p.stem: [{k: panel.get(k) for k in ("label", "keys", "n", "n_dropped", "stats", "trend")}
                      for panel in json.loads(p.read_text())["panels"]]
@@ -47,10 +57,7 @@ def test_demo_through_the_generic_cluster_executor(built_demo, tmp_path):
     pytest.importorskip("snakemake_executor_plugin_cluster_generic")
     project = _with_profiles(copy_project(tmp_path / "cluster"))
     make_demo_data(project)
-    proc = snakemake(project, "--profile", "profiles/cluster-generic",
-                     "--cluster-generic-submit-cmd", f"sh {CLUSTER / 'submit.sh'}",
-                     "--cluster-generic-status-cmd", f"sh {CLUSTER / 'status.sh'}",
-                     "--cluster-generic-cancel-cmd", "true", "--latency-wait", "10")
+    proc = _stand_in(project)
     submitted = (project / ".queue" / "submitted").read_text().split()
     local = _panels(built_demo / "results" / "figures")
     remote = _panels(project / "results" / "figures")
@@ -122,10 +129,7 @@ def test_a_killed_job_is_retried_with_more_memory_and_time(tmp_path):
     (project / ".queue").mkdir()
     (project / ".queue" / "kill-next").write_text("")
     target = "results/figures/temperature-histogram.json"
-    snakemake(project, target, "--profile", "profiles/cluster-generic", "--retries", "1",
-              "--cluster-generic-submit-cmd", f"sh {CLUSTER / 'submit.sh'}",
-              "--cluster-generic-status-cmd", f"sh {CLUSTER / 'status.sh'}",
-              "--cluster-generic-cancel-cmd", "true", "--latency-wait", "10")
+    _stand_in(project, target, "--retries", "1")
     submitted = (project / ".queue" / "submitted").read_text().split()
     assert len(submitted) == 2
     assert (project / ".queue" / f"{submitted[0]}.rc").read_text().strip() == "137"
@@ -141,16 +145,6 @@ GROUP_ROWS = [   # four figures of the Palmer penguins, one cluster job (five fi
     ["bad-scatter", "penguins", "scatter", "bill_length_mm", "flipper_length_mm", "species", "",
      "unforgiving"],
 ]
-
-
-def _stand_in(project: Path, *args: str, check: bool = True) -> subprocess.CompletedProcess:
-    """The cluster-generic profile with the stand-in batch system, one attempt per job, status
-    polled every second (the plugin's default is 10 s)."""
-    return snakemake(project, "--profile", "profiles/cluster-generic", "--retries", "0",
-                     "--cluster-generic-submit-cmd", f"sh {CLUSTER / 'submit.sh'}",
-                     "--cluster-generic-status-cmd", f"sh {CLUSTER / 'status.sh'}",
-                     "--cluster-generic-cancel-cmd", "true", "--latency-wait", "10",
-                     "--seconds-between-status-checks", "1", *args, check=check)
 
 
 def test_a_figure_that_fails_in_a_group_job_fails_alone(tmp_path):
@@ -180,7 +174,7 @@ def test_a_figure_that_fails_in_a_group_job_fails_alone(tmp_path):
                           capture_output=True, text=True)
     assert lint.returncode == 0, lint.stdout + lint.stderr     # not a mistake found before drawing
 
-    first = _stand_in(project, check=False)
+    first = _stand_in(project, "--retries", "0", check=False)
     assert first.returncode != 0
     (job,) = (project / ".queue" / "submitted").read_text().split()   # one group job
     assert (project / ".queue" / f"{job}.rc").read_text().strip() not in ("", "0")
@@ -203,10 +197,10 @@ def test_a_figure_that_fails_in_a_group_job_fails_alone(tmp_path):
 
     sheet = project / "config" / "figures.tsv"
     sheet.write_text(sheet.read_text().replace("\tunforgiving\n", "\t\n"))
-    dry = _stand_in(project, "-n")
+    dry = _stand_in(project, "--retries", "0", "-n")
     planned = re.findall(r"rule figure:\n(?:.*\n)*?\s*wildcards: id=(\S+)", dry.stdout + dry.stderr)
     assert planned == ["bad-scatter"], (dry.stdout + dry.stderr)[-3000:]
-    _stand_in(project)
+    _stand_in(project, "--retries", "0")
     assert json.loads((figures / "bad-scatter.json").read_text())["id"] == "bad-scatter"
     for fid, files in good.items():
         assert {p.name: (p.stat().st_mtime_ns, p.read_bytes())
