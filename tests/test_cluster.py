@@ -4,21 +4,25 @@ a clean environment, the SLURM profile's dry run (snakemake-executor-plugin-slur
 profiles `figkit init` puts into a manuscript folder.
 
 Outside references: Snakemake's executor plugins and its dry-run listing; the per-panel numbers
-of a local build of the same demo data (the session's `built_demo`), read from its sidecars.
+of a local build of the same demo data (the session's `built_demo`), read from its sidecars;
+SHA-256 (FIPS 180-4, Python's hashlib) and Pillow's PNG decoder for "whole" files.
 """
 from __future__ import annotations
 
 import filecmp
+import hashlib
 import json
 import os
+import re
 import shutil
 import subprocess
 import sys
 from pathlib import Path
 
 import pytest
+from PIL import Image
 
-from conftest import REPO, copy_project, make_demo_data, snakemake
+from conftest import REPO, copy_project, make_demo_data, sheet_text, snakemake, write_penguin_project
 
 CLUSTER = REPO / "tests" / "cluster"
 PROFILES = ("local", "slurm", "cluster-generic")
@@ -27,6 +31,16 @@ PROFILES = ("local", "slurm", "cluster-generic")
 def _with_profiles(project: Path) -> Path:
     shutil.copytree(REPO / "profiles", project / "profiles")
     return project
+
+
+def _stand_in(project: Path, *args: str, check: bool = True) -> subprocess.CompletedProcess:
+    """The cluster-generic profile with the stand-in batch system (tests/cluster/), its status
+    polled every second (Snakemake's default is 10 s)."""
+    return snakemake(project, "--profile", "profiles/cluster-generic",
+                     "--cluster-generic-submit-cmd", f"sh {CLUSTER / 'submit.sh'}",
+                     "--cluster-generic-status-cmd", f"sh {CLUSTER / 'status.sh'}",
+                     "--cluster-generic-cancel-cmd", "true", "--latency-wait", "10",
+                     "--seconds-between-status-checks", "1", *args, check=check)
 
 
 def _panels(folder: Path) -> dict:
@@ -43,10 +57,7 @@ def test_demo_through_the_generic_cluster_executor(built_demo, tmp_path):
     pytest.importorskip("snakemake_executor_plugin_cluster_generic")
     project = _with_profiles(copy_project(tmp_path / "cluster"))
     make_demo_data(project)
-    proc = snakemake(project, "--profile", "profiles/cluster-generic",
-                     "--cluster-generic-submit-cmd", f"sh {CLUSTER / 'submit.sh'}",
-                     "--cluster-generic-status-cmd", f"sh {CLUSTER / 'status.sh'}",
-                     "--cluster-generic-cancel-cmd", "true", "--latency-wait", "10")
+    proc = _stand_in(project)
     submitted = (project / ".queue" / "submitted").read_text().split()
     local = _panels(built_demo / "results" / "figures")
     remote = _panels(project / "results" / "figures")
@@ -118,15 +129,106 @@ def test_a_killed_job_is_retried_with_more_memory_and_time(tmp_path):
     (project / ".queue").mkdir()
     (project / ".queue" / "kill-next").write_text("")
     target = "results/figures/temperature-histogram.json"
-    snakemake(project, target, "--profile", "profiles/cluster-generic", "--retries", "1",
-              "--cluster-generic-submit-cmd", f"sh {CLUSTER / 'submit.sh'}",
-              "--cluster-generic-status-cmd", f"sh {CLUSTER / 'status.sh'}",
-              "--cluster-generic-cancel-cmd", "true", "--latency-wait", "10")
+    _stand_in(project, target, "--retries", "1")
     submitted = (project / ".queue" / "submitted").read_text().split()
     assert len(submitted) == 2
     assert (project / ".queue" / f"{submitted[0]}.rc").read_text().strip() == "137"
     res = json.loads((project / target).read_text())["resources"]
     assert res["granted"] == {"mem_mb": 2 * res["mem_mb"], "runtime": 2 * res["runtime_min"]}
+
+
+GROUP_ROWS = [   # four figures of the Palmer penguins, one cluster job (five figures per group)
+    ["bill-scatter", "penguins", "scatter", "bill_length_mm", "bill_depth_mm", "species", "", ""],
+    ["flipper-hist", "penguins", "histogram", "flipper_length_mm", "", "", "species", ""],
+    ["mass-box", "penguins", "box", "species", "body_mass_g", "", "", ""],
+    # the bad one: a house style that fails the build at drawing time (lint passes it)
+    ["bad-scatter", "penguins", "scatter", "bill_length_mm", "flipper_length_mm", "species", "",
+     "unforgiving"],
+]
+
+
+def test_a_figure_that_fails_in_a_group_job_fails_alone(tmp_path):
+    """Four figures in one group job on the stand-in cluster, one of which fails while it is
+    drawn: the node builds the other three (keep-going on the node, figkit.workflow), the batch
+    system reports the job failed and Snakemake exits non-zero, the failed figure's log holds its
+    one-line error and it has no files, the other three are kept with every file whole
+    (--keep-incomplete in the profile).  After the row is fixed, a dry run lists that figure
+    alone, and the build makes it without touching the other three's files."""
+    pytest.importorskip("snakemake_executor_plugin_cluster_generic")
+    header = ["id", "dataset", "chart", "x", "y", "colour", "strata", "style"]
+    project = _with_profiles(write_penguin_project(tmp_path / "group", sheet_text(header, GROUP_ROWS),
+                                                   formats="[pdf, png]"))
+    (project / "Snakefile").write_text(
+        'import figkit.workflow\nconfigfile: "config/config.yaml"\n'
+        'include: figkit.workflow.rules()\n\nrule all:\n    input: rules.all_figures.input\n')
+    # A strict house style whose colour-difference threshold no three-colour palette meets (a
+    # value chosen to fail: CIEDE2000 90 exceeds the distance of most pairs of distinct hues).
+    styles = project / "styles"
+    text = (styles / "house.yaml").read_text()
+    assert "\nstrict: false" in text and "\nmin_colour_difference: " in text
+    text = text.replace("\nstrict: false", "\nstrict: true")
+    text = re.sub(r"\nmin_colour_difference: \S+", "\nmin_colour_difference: 90", text)
+    (styles / "unforgiving.yaml").write_text(text)
+    shutil.copy(styles / "house.mplstyle", styles / "unforgiving.mplstyle")
+    lint = subprocess.run([sys.executable, "-m", "figkit", "lint"], cwd=project,
+                          capture_output=True, text=True)
+    assert lint.returncode == 0, lint.stdout + lint.stderr     # not a mistake found before drawing
+
+    first = _stand_in(project, "--retries", "0", check=False)
+    assert first.returncode != 0
+    (job,) = (project / ".queue" / "submitted").read_text().split()   # one group job
+    assert (project / ".queue" / f"{job}.rc").read_text().strip() not in ("", "0")
+    figures = project / "results" / "figures"
+    log = (project / "logs" / "figures" / "bad-scatter.log").read_text().splitlines()
+    errors = [line for line in log if line.startswith("figkit: error: ")]
+    assert len(errors) == 1 and "Traceback" not in "\n".join(log)
+    assert "sheet row 5, figure 'bad-scatter'" in errors[0] and "colours too alike" in errors[0]
+    assert not list(figures.glob("bad-scatter.*"))
+    good = {}
+    for fid in ("bill-scatter", "flipper-hist", "mass-box"):
+        record = json.loads((figures / f"{fid}.json").read_text())
+        for ext in ("pdf", "png", "stats.csv"):
+            path = figures / f"{fid}.{ext}"
+            assert hashlib.sha256(path.read_bytes()).hexdigest() == record["file_sha256"][path.name]
+        assert (figures / f"{fid}.pdf").read_bytes().rstrip().endswith(b"%%EOF")
+        with Image.open(figures / f"{fid}.png") as im:
+            im.load()                                        # decodes the whole image
+        good[fid] = {p.name: (p.stat().st_mtime_ns, p.read_bytes()) for p in figures.glob(f"{fid}.*")}
+
+    sheet = project / "config" / "figures.tsv"
+    sheet.write_text(sheet.read_text().replace("\tunforgiving\n", "\t\n"))
+    dry = _stand_in(project, "--retries", "0", "-n")
+    planned = re.findall(r"rule figure:\n(?:.*\n)*?\s*wildcards: id=(\S+)", dry.stdout + dry.stderr)
+    assert planned == ["bad-scatter"], (dry.stdout + dry.stderr)[-3000:]
+    _stand_in(project, "--retries", "0")
+    assert json.loads((figures / "bad-scatter.json").read_text())["id"] == "bad-scatter"
+    for fid, files in good.items():
+        assert {p.name: (p.stat().st_mtime_ns, p.read_bytes())
+                for p in figures.glob(f"{fid}.*")} == files, fid
+
+
+def test_keep_going_on_node_against_snakemakes_settings():
+    """figkit.workflow.keep_going_on_node on Snakemake's own ExecutionSettings: set in remote mode
+    only; a settings object that lacks the field or refuses it (a frozen dataclass) is left as it
+    is, without an error, as is a workflow whose settings are not in place yet (None)."""
+    import dataclasses
+    from types import SimpleNamespace
+    from snakemake.settings.types import ExecutionSettings
+    from figkit.workflow import keep_going_on_node
+
+    def flow(settings, remote=True):
+        return SimpleNamespace(remote_exec=remote, execution_settings=settings)
+    remote, main = ExecutionSettings(), ExecutionSettings()
+    assert keep_going_on_node(flow(remote)) and remote.keep_going is True
+    assert not keep_going_on_node(flow(main, remote=False)) and main.keep_going is False
+
+    @dataclasses.dataclass(frozen=True)
+    class Frozen:
+        keep_going: bool = False
+    frozen = Frozen()
+    assert not keep_going_on_node(flow(frozen)) and frozen.keep_going is False
+    assert not keep_going_on_node(flow(SimpleNamespace()))
+    assert not keep_going_on_node(flow(None))
 
 
 def _sheet_rows(project) -> int:

@@ -187,6 +187,49 @@ def test_half_written_figure_under_an_incomplete_marker_is_built_again(project):
     assert_whole_and_current(project)
 
 
+def test_with_keep_incomplete_a_half_written_figure_without_marker_is_built_again(project):
+    """--keep-incomplete (the cluster profiles): Snakemake keeps a failed job's files and clears
+    their markers, so the start of a run checks every figure against its sidecar's hashes: a
+    PDF of another build with no marker at all (as a killed `figkit render` run by hand leaves
+    it) is removed and built again byte-identical; a whole figure is left as it is (its files not
+    rewritten)."""
+    figures = project / "results" / "figures"
+    assert not list((project / ".snakemake" / "incomplete").rglob("*"))
+    pdf = figures / "taxa-by-season.pdf"
+    good = pdf.read_bytes()
+    pdf.write_bytes(good[: len(good) // 2] + b"%%EOF\n")            # not what the sidecar says
+    whole = figures / "oxygen-by-land-use.png"
+    before = (sha256(whole), whole.stat().st_mtime_ns)
+    proc = snakemake(project, "--keep-incomplete")
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    assert "figure 'taxa-by-season': its files were left half-written" in proc.stderr
+    assert "oxygen-by-land-use': its files" not in proc.stderr
+    assert pdf.read_bytes() == good                              # rebuilt: byte-identical
+    assert (sha256(whole), whole.stat().st_mtime_ns) == before
+    assert_whole_and_current(project)
+
+
+def test_keep_incomplete_check_needs_evidence(tmp_path, monkeypatch):
+    """The check of every figure removes files only on evidence: a sidecar that records a hash
+    the file does not have.  A sidecar of an older figkit (no file_sha256) or a file it records
+    no hash for is left alone, and without --keep-incomplete unmarked figures are not looked at."""
+    from figkit.workflow.recover import recover_figures
+    monkeypatch.chdir(tmp_path)
+    folder = tmp_path / "results" / "figures"
+    folder.mkdir(parents=True)
+    (folder / "old.json").write_text(json.dumps({"id": "old"}))       # no hashes recorded
+    (folder / "old.png").write_bytes(b"anything")
+    (folder / "mix.png").write_bytes(b"new")
+    (folder / "mix.stats.csv").write_bytes(b"not recorded")
+    (folder / "mix.json").write_text(json.dumps({"file_sha256": {
+        "mix.png": hashlib.sha256(b"old").hexdigest()}}))             # FIPS 180-4 via hashlib
+    assert recover_figures("results", ["old", "mix"], ["png"], every=False) == []
+    assert (folder / "mix.png").exists()
+    assert recover_figures("results", ["old", "mix"], ["png"], every=True) == ["mix"]
+    assert not [p for p in folder.iterdir() if p.name.startswith("mix.")]
+    assert (folder / "old.png").read_bytes() == b"anything" and (folder / "old.json").exists()
+
+
 def test_a_lock_no_recorded_run_took_is_left_alone(project):
     """Locks of a run figkit did not record (another machine, another tool): never removed."""
     locks = project / ".snakemake" / "locks"

@@ -64,6 +64,36 @@ def warm_jobs() -> str | None:
     return path
 
 
+def keep_going_on_node(workflow) -> bool:
+    """In the Snakemake that runs a job on a cluster node (Snakemake's remote mode, ``--mode
+    remote``: a group job or a single job), build every figure of the job even when one fails;
+    that Snakemake still exits non-zero, so the job is reported failed.
+
+    Why here: the main Snakemake's ``--keep-going`` never reaches the node (the arguments it gives
+    a spawned job, ``snakemake/spawn_jobs.py`` ``general_args``, do not include it), so without
+    this a group job stops at its first failed figure and its later figures are never built.  The
+    node's scheduler reads ``workflow.execution_settings.keep_going`` when it is made
+    (``snakemake/scheduling/job_scheduler.py``, ``JobScheduler.__init__``).  The settings object
+    is put on the workflow only after the Snakefile has been read (``snakemake/api.py``,
+    ``execute_workflow``: ``workflow.execution_settings = execution_settings``; it is None while
+    the file is read), and the scheduler is made after the DAG is built (``Workflow.execute``), so
+    this is called from the first input function (figures.smk, ``_write_stamps``), where setting
+    the field of the mutable dataclass takes effect.  Checked against Snakemake 9.27;
+    tests/test_cluster.py runs it end to end.  Where a Snakemake has no such
+    attribute or refuses the assignment, nothing is changed (the job stops at its first failure,
+    as before) and nothing fails.  Returns True when keep-going was set."""
+    if not getattr(workflow, "remote_exec", False):
+        return False
+    settings = getattr(workflow, "execution_settings", None)
+    if settings is None or not hasattr(settings, "keep_going"):
+        return False
+    try:
+        settings.keep_going = True
+    except (AttributeError, TypeError):   # a frozen settings object (FrozenInstanceError)
+        return False
+    return True
+
+
 def settings_from_environment() -> dict | None:
     """The settings a workflow job was given (:func:`job_settings`), or None outside a workflow."""
     text = os.environ.get(SETTINGS_VAR)

@@ -181,12 +181,21 @@ _FK_STAMPS_WRITTEN = []
 
 def _write_stamps() -> None:
     """Every figure's stamp at once, at the first call: Snakemake keeps a listing of a folder once
-    it has looked into it, so a stamp written after that would count as missing."""
+    it has looked into it, so a stamp written after that would count as missing.  Also the place
+    for what must happen once per real run after Snakemake has put its settings in place."""
     if _FK_STAMPS_WRITTEN:
         return
     _FK_STAMPS_WRITTEN.append(True)
+    # On a cluster node (a group job): every figure of the job is built even when one fails; the
+    # job still fails.  Here, not where the file is read: Snakemake puts its execution settings on
+    # the workflow only after reading the Snakefile, and reads them for the scheduler after the
+    # input functions have run (figkit.workflow.keep_going_on_node).
+    figkit.workflow.keep_going_on_node(workflow)
     if workflow.is_main_process:   # after a killed build: markers, leftovers, stale locks
-        figkit.workflow.recover.recover(FK_RESULTS, FK_TARGETS, FK_FORMATS)
+        # --keep-incomplete (the cluster profiles) keeps a failed job's files without a marker:
+        # then every figure's files are checked against its sidecar (recover_figures)
+        kept = bool(getattr(workflow.execution_settings, "keep_incomplete", False))
+        figkit.workflow.recover.recover(FK_RESULTS, FK_TARGETS, FK_FORMATS, every=kept)
     for rid in FK_TARGETS:
         if _stamp_is_current(rid):
             continue

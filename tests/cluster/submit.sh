@@ -14,6 +14,8 @@ if [ -f .queue/kill-next ]; then   # a test's stand-in for a job the scheduler k
     echo "$id"
     exit 0
 fi
-( env -i PATH="$PATH" HOME="$HOME" sh "$script" > ".queue/$id.out" 2>&1; echo $? > ".queue/$id.rc" ) \
-    < /dev/null > /dev/null 2>&1 &
+# The job's exit code is written whatever it is: under set -e (inherited by the subshell) a failed
+# job would end the subshell before its code was written, and the job would be "running" forever.
+( rc=0; env -i PATH="$PATH" HOME="$HOME" sh "$script" > ".queue/$id.out" 2>&1 || rc=$?
+  echo "$rc" > ".queue/$id.rc" ) < /dev/null > /dev/null 2>&1 &
 echo "$id"
