@@ -691,7 +691,6 @@ class _Assembly:
         if drawer.zero_y:
             tops = []
             for ax in axes:
-                ax.relim()
                 ax.autoscale_view()
                 tops.append(ax.get_ylim()[1])
             for ax, top in zip(axes, tops):

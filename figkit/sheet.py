@@ -19,7 +19,7 @@ import jsonschema
 import yaml
 
 from .errors import FigkitError, did_you_mean
-from .text import read_text, refuse_controls
+from .text import read_text, read_yaml, refuse_controls
 
 SCHEMA_DIR = Path(__file__).with_name("schemas")
 CONFIG_FILE = Path("config") / "config.yaml"
@@ -179,7 +179,7 @@ def load_config(root: Path | str = ".") -> Config:
     if not path.is_file():
         raise FigkitError(f"no project settings at {path}; run 'figkit init DIR' to start a project")
     try:
-        data = yaml.safe_load(read_text(path, "settings file")) or {}
+        data = read_yaml(path, "settings file") or {}
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         where = f" at line {mark.line + 1}" if mark else ""

@@ -10,7 +10,7 @@ from pathlib import Path
 import yaml
 
 from .errors import FigkitError
-from .text import read_text
+from .text import read_yaml
 
 MM_PER_INCH = 25.4
 PT_PER_INCH = 72.0
@@ -154,7 +154,7 @@ def load_style(name: str, styles_dir: Path | str, extra_sizes: dict | None = Non
         raise FigkitError("unknown house style", row=row, figure=figure, field="style", value=name,
                           allowed=known)
     try:
-        data = yaml.safe_load(read_text(path, "house style")) or {}
+        data = read_yaml(path, "house style") or {}
     except yaml.YAMLError:
         raise FigkitError(f"house style {path} is not valid YAML") from None
     missing = sorted(_REQUIRED - set(data))
