@@ -238,7 +238,7 @@ def render_parts(project: Project, row: SheetRow, granted: dict | None = None) -
     pspec = build_parts_spec(row, project.config, project.rows)
     st = pspec.style
     # Python warnings while drawing and saving become cautions, as for any figure (render).
-    with mpl.rc_context(st.rc), warnings.catch_warnings(record=True) as caught, collector_paused():
+    with mpl.rc_context(st.rc), warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         page, d = draw_parts(project, pspec)
         W, H = pspec.width_mm, d["height"]
@@ -270,9 +270,12 @@ def render_parts(project: Project, row: SheetRow, granted: dict | None = None) -
         }
         for msg in d["cautions"]:
             log.warning("%s: %s", pspec.id, msg)
-        write_figure(page, record, pspec.id, pspec.formats, st, project.config.results / "figures",
-                     d["min_delta_e"], pspec.err, values=_values_csv(d["values"], ("part",)),
-                     stats=_stats_csv(d["stat_lines"], ("part",)), caught=caught)
+        # Only the saving with the collector paused: the parts' data and their first, thrown-away
+        # drawings (pass 1 of draw_parts) leave garbage that should go as it comes.
+        with collector_paused():
+            write_figure(page, record, pspec.id, pspec.formats, st, project.config.results / "figures",
+                         d["min_delta_e"], pspec.err, values=_values_csv(d["values"], ("part",)),
+                         stats=_stats_csv(d["stat_lines"], ("part",)), caught=caught)
     return P.clean(record)
 
 

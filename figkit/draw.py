@@ -76,7 +76,8 @@ def _ticks_now(axis, major: bool) -> tuple[np.ndarray, list]:
     a millisecond to make.  Once the ticks are pinned (:func:`_pin_ticks`) the locations are
     exactly the ones inside the view, so a draw then uses the same tick objects in the same order.
     A repeated call with nothing changed (limits, axis box, locator, formatter, and the ticks
-    still where they were put) returns the placement made before."""
+    still where they were put) returns the placement made before; each new placement of the
+    panels forgets it (:func:`_forget_ticks`), since tick parameters may change there."""
     locator, fmt = ((axis.get_major_locator(), axis.get_major_formatter()) if major else
                     (axis.get_minor_locator(), axis.get_minor_formatter()))
     key = (locator, fmt, tuple(axis.get_view_interval()), tuple(axis.axes.bbox.bounds))
@@ -96,6 +97,14 @@ def _ticks_now(axis, major: bool) -> tuple[np.ndarray, list]:
         tick.label2.set_text(text)
     memo[major] = (key, locs, ticks)
     return locs, ticks
+
+
+def _forget_ticks(axes) -> None:
+    """Drop the placements :func:`_ticks_now` keeps, for axes whose ticks may change in ways its
+    key does not see (tick parameters, a locator's or formatter's settings)."""
+    for ax in axes:
+        for axis in (ax.xaxis, ax.yaxis):
+            axis.__dict__.pop("_figkit_ticks", None)
 
 
 def _drawn_tick_labels(axis, renderer=None) -> list:
@@ -736,6 +745,7 @@ class _Assembly:
         """Size the canvas and place every panel for ``grid``; tick labels only on the outer
         panels when an axis is shared (the rule follows the grid, which may change)."""
         spec = self.spec
+        _forget_ticks(self.axes)
         h = spec.height_mm or L.grid_height(grid.rows, grid.panel_h, margin)
         if self.target is None:          # a part's cell keeps its size (spec.height_mm is set)
             self.fig.set_size_inches(mm_to_in(spec.width_mm), mm_to_in(h))
@@ -777,6 +787,7 @@ class _Assembly:
     def set_category_labels(self, step: int) -> None:
         """Category labels along x in arrangement ``LABEL_STEPS[step]`` (angle, two lines)."""
         angle, two = LABEL_STEPS[step]
+        _forget_ticks(self.axes)
         texts = [_split_even(t) if two and len(t) > WRAP_CHARS else t for t in self.category_texts]
         for ax in self.axes:
             ax.set_xticks(range(len(texts)), texts)

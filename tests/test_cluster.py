@@ -209,14 +209,14 @@ def test_a_figure_that_fails_in_a_group_job_fails_alone(tmp_path):
                 for p in figures.glob(f"{fid}.*")} == files, fid
 
 
-@pytest.mark.xfail(strict=True, reason="review of eaad041..09a4771: with keep-incomplete, Snakemake "
-                   "records the old files of group members that never ran as finished with the new "
-                   "params and input checksums, so the stale figure is never rebuilt")
 def test_a_killed_group_job_does_not_leave_a_stale_figure_as_current(tmp_path):
     """A row is edited, and the group job that would rebuild its figure is killed by the batch
     system before it starts (time limit, lost node; the stand-in's kill-next, no retries left).
-    The figure's files are still the previous build's, whole and agreeing with their sidecar; the
-    next run must build it again.  Outside reference: Snakemake's own dry-run listing."""
+    With keep-incomplete, Snakemake would keep the previous build's files, whole and agreeing
+    with their sidecar, and record them as finished with the new settings (found by an
+    independent review; Snakemake 9.27, Job.postprocess): the next run must still build the
+    figure from today's row.  Outside reference: Snakemake's own dry-run listing and the sidecar
+    the rebuilt figure carries."""
     pytest.importorskip("snakemake_executor_plugin_cluster_generic")
     header = ["id", "dataset", "chart", "x", "y", "colour", "strata", "style"]
     rows = [r for r in GROUP_ROWS if r[0] != "bad-scatter"]
@@ -226,16 +226,23 @@ def test_a_killed_group_job_does_not_leave_a_stale_figure_as_current(tmp_path):
         'import figkit.workflow\nconfigfile: "config/config.yaml"\n'
         'include: figkit.workflow.rules()\n\nrule all:\n    input: rules.all_figures.input\n')
     _stand_in(project, "--retries", "0")
+    sidecar = project / "results" / "figures" / "mass-box.json"
+    kept = {p.name: p.read_bytes() for p in sidecar.parent.glob("bill-scatter.*")}
     sheet = project / "config" / "figures.tsv"
     sheet.write_text(sheet.read_text().replace("\tbody_mass_g\t", "\tflipper_length_mm\t"))
     (project / ".queue" / "kill-next").write_text("")
-    assert _stand_in(project, "--retries", "0", check=False).returncode != 0
-    sidecar = project / "results" / "figures" / "mass-box.json"
-    # kept (keep-incomplete): the previous build's figure, whole; else removed by Snakemake
-    assert not sidecar.exists() or json.loads(sidecar.read_text())["y"] == "body_mass_g"
+    killed = _stand_in(project, "--retries", "0", check=False)
+    assert killed.returncode != 0
+    # the stale figure's files went before anything was submitted (figkit.workflow.recover) ...
+    assert "figure 'mass-box': its sheet row" in killed.stderr, killed.stderr[-2000:]
+    assert not list(sidecar.parent.glob("mass-box.*"))
+    # ... and only its: an unchanged figure keeps its files, byte for byte
+    assert {p.name: p.read_bytes() for p in sidecar.parent.glob("bill-scatter.*")} == kept
     dry = _stand_in(project, "--retries", "0", "-n")
     planned = re.findall(r"wildcards: id=(\S+)", dry.stdout + dry.stderr)
-    assert "mass-box" in planned, (dry.stdout + dry.stderr)[-2000:]
+    assert planned == ["mass-box"], (dry.stdout + dry.stderr)[-2000:]
+    _stand_in(project, "--retries", "0")
+    assert json.loads(sidecar.read_text())["y"] == "flipper_length_mm"
 
 
 def test_keep_going_on_node_against_snakemakes_settings():

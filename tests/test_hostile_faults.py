@@ -191,8 +191,8 @@ def test_with_keep_incomplete_a_half_written_figure_without_marker_is_built_agai
     """--keep-incomplete (the cluster profiles): Snakemake keeps a failed job's files and clears
     their markers, so the start of a run checks every figure against its sidecar's hashes: a
     PDF of another build with no marker at all (as a killed `figkit render` run by hand leaves
-    it) is removed and built again byte-identical; a whole figure is left as it is (its files not
-    rewritten)."""
+    it, or a co-author's edit) is moved to results/figures/set-aside/ (not deleted) and the figure
+    built again byte-identical; a whole figure is left as it is (its files not rewritten)."""
     figures = project / "results" / "figures"
     assert not list((project / ".snakemake" / "incomplete").rglob("*"))
     pdf = figures / "taxa-by-season.pdf"
@@ -202,9 +202,11 @@ def test_with_keep_incomplete_a_half_written_figure_without_marker_is_built_agai
     before = (sha256(whole), whole.stat().st_mtime_ns)
     proc = snakemake(project, "--keep-incomplete")
     assert proc.returncode == 0, proc.stderr[-3000:]
-    assert "figure 'taxa-by-season': its files were left half-written" in proc.stderr
+    assert "figure 'taxa-by-season': its files disagree with the SHA-256s" in proc.stderr
     assert "oxygen-by-land-use': its files" not in proc.stderr
     assert pdf.read_bytes() == good                              # rebuilt: byte-identical
+    aside = figures / "set-aside" / "taxa-by-season.pdf"           # the odd file kept, not lost
+    assert aside.read_bytes() == good[: len(good) // 2] + b"%%EOF\n"
     assert (sha256(whole), whole.stat().st_mtime_ns) == before
     assert_whole_and_current(project)
 
@@ -227,7 +229,43 @@ def test_keep_incomplete_check_needs_evidence(tmp_path, monkeypatch):
     assert (folder / "mix.png").exists()
     assert recover_figures("results", ["old", "mix"], ["png"], every=True) == ["mix"]
     assert not [p for p in folder.iterdir() if p.name.startswith("mix.")]
+    assert (folder / "set-aside" / "mix.png").read_bytes() == b"new"   # moved, not deleted
     assert (folder / "old.png").read_bytes() == b"anything" and (folder / "old.json").exists()
+
+
+def test_keep_incomplete_finds_figures_older_than_their_row_data_or_style(project, tmp_path):
+    """stale_reason, on a real build's sidecar (in a copy of the project): nothing while row,
+    data and house style are as built; then each change is named (the figure's row, its data
+    file, a house-style file).  Hashes are hashlib's SHA-256 (FIPS 180-4)."""
+    import shutil
+
+    from figkit.render import load_project
+    from figkit.spec import fingerprint
+    from figkit.workflow.recover import hasher, stale_reason
+    copy = tmp_path / "copy"
+    shutil.copytree(project, copy, symlinks=False)
+    sidecar = copy / "results" / "figures" / "taxa-by-season.json"
+    record = json.loads(sidecar.read_text())
+    p = load_project(copy)
+    row = next(r for r in p.rows if r.id == "taxa-by-season")
+    now = fingerprint(row, p.config)
+    assert record["fingerprint"] == now
+    styles = copy / p.config["styles_dir"]
+    cwd = os.getcwd()
+    os.chdir(copy)
+    try:
+        assert stale_reason(sidecar, now, hasher(), styles) is None
+        assert "sheet row" in stale_reason(sidecar, now + "x", hasher(), styles)
+        data = Path(record["inputs"][0]["path"])
+        saved = data.read_bytes()
+        data.write_bytes(saved + b"\n")
+        assert "data file" in stale_reason(sidecar, now, hasher(), styles)
+        data.write_bytes(saved)
+        style = styles / next(iter(record["style"]["files"]))
+        style.write_text(style.read_text() + "\n# edited\n")
+        assert "house-style file" in stale_reason(sidecar, now, hasher(), styles)
+    finally:
+        os.chdir(cwd)
 
 
 def test_a_lock_no_recorded_run_took_is_left_alone(project):

@@ -170,12 +170,20 @@ def _stamp(wildcards):
     return str(path)
 
 
+def _stamp_value(rid) -> str:
+    return _fingerprint(type("W", (), {"id": rid})(), files=False)
+
+
 def _stamp_is_current(rid) -> bool:
     path = Path(FK_RESULTS) / ".fingerprints" / rid
-    value = _fingerprint(type("W", (), {"id": rid})(), files=False)
-    return path.is_file() and path.read_text(encoding="utf-8") == value
+    return path.is_file() and path.read_text(encoding="utf-8") == _stamp_value(rid)
 
 
+def _keep_incomplete() -> bool:
+    return bool(getattr(workflow.execution_settings, "keep_incomplete", False))
+
+
+_FK_STYLES = Path(FK_CONFIG.root) / FK_CONFIG["styles_dir"]
 _FK_STAMPS_WRITTEN = []
 
 
@@ -192,17 +200,18 @@ def _write_stamps() -> None:
     # input functions have run (figkit.workflow.keep_going_on_node).
     figkit.workflow.keep_going_on_node(workflow)
     if workflow.is_main_process:   # after a killed build: markers, leftovers, stale locks
-        # --keep-incomplete (the cluster profiles) keeps a failed job's files without a marker:
-        # then every figure's files are checked against its sidecar (recover_figures)
-        kept = bool(getattr(workflow.execution_settings, "keep_incomplete", False))
-        figkit.workflow.recover.recover(FK_RESULTS, FK_TARGETS, FK_FORMATS, every=kept)
+        # --keep-incomplete (the cluster profiles) keeps a failed job's files without a marker
+        # and as if current: then every figure's files are checked against its sidecar, and
+        # against today's row, data and house style (figkit.workflow.recover.recover_figures)
+        figkit.workflow.recover.recover(FK_RESULTS, FK_TARGETS, FK_FORMATS, every=_keep_incomplete(),
+                                        current=_stamp_value, styles_dir=_FK_STYLES)
     for rid in FK_TARGETS:
         if _stamp_is_current(rid):
             continue
         path = Path(FK_RESULTS) / ".fingerprints" / rid
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_name(f".{path.name}.part")
-        tmp.write_text(_fingerprint(type("W", (), {"id": rid})(), files=False), encoding="utf-8")
+        tmp.write_text(_stamp_value(rid), encoding="utf-8")
         tmp.replace(path)
 
 

@@ -12,6 +12,8 @@ for incomplete files):
   each other file's SHA-256 in it (``file_sha256``).  A figure whose files all match its
   sidecar is provably whole: its markers are removed.  Otherwise the figure's files are a mix of
   two builds: they are removed (they are figkit's own outputs) and the figure is built again.
+  With ``--keep-incomplete`` (the cluster profiles) there are no markers to go by, so every
+  figure is checked: see :func:`recover_figures`.
 * **Temporary files** (``.<file>.<host>~<pid>.<random>.part``) of processes that no longer run
   (:func:`figkit.provenance.remove_leftovers`).
 * **Stale locks** (``.snakemake/locks/``): every figkit run records itself
@@ -81,18 +83,97 @@ def disagrees_with_sidecar(sidecar: Path, outputs: list[Path]) -> bool:
                for p in outputs)
 
 
-def recover_figures(results: str, ids, formats, every: bool = False) -> list[str]:
+def stale_reason(sidecar: Path, fingerprint: str, hash_of, styles_dir: Path | None = None) -> str | None:
+    """Why a figure's files, whole or not, no longer show what the sheet, the data and the house
+    style ask for: the sidecar's ``fingerprint`` (its row and the settings it reads, figkit's
+    version) differs from ``fingerprint`` (today's), or a data file the sidecar lists (``inputs``,
+    path relative to the project) or a house-style file (``style.files``, in ``styles_dir``) now
+    has another SHA-256 (``hash_of(path)``).  None when they agree, and when there is no readable
+    sidecar or it records none of these (no evidence)."""
+    try:
+        record = json.loads(sidecar.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
+    if not isinstance(record, dict):
+        return None
+    built = record.get("fingerprint")
+    if isinstance(built, str) and built != fingerprint:
+        return "its sheet row, the settings it reads or figkit's version changed since it was built"
+    for item in record.get("inputs") or []:
+        path = Path(str(item.get("path", ""))) if isinstance(item, dict) else None
+        if path is not None and item.get("sha256") and path.is_file() and hash_of(path) != item["sha256"]:
+            return f"its data file {path} changed since it was built"
+    style = record.get("style")
+    files = style.get("files") if isinstance(style, dict) else None
+    if styles_dir is not None and isinstance(files, dict):
+        for name, digest in files.items():
+            path = Path(styles_dir) / str(name)
+            if digest and path.is_file() and hash_of(path) != digest:
+                return f"its house-style file {path} changed since it was built"
+    return None
+
+
+def hasher():
+    """sha256_file, each path hashed once per run (several figures read the same data file)."""
+    from ..provenance import sha256_file
+    seen: dict = {}
+
+    def hash_of(path: Path) -> str:
+        key = str(Path(path).resolve())
+        if key not in seen:
+            seen[key] = sha256_file(path)
+        return seen[key]
+    return hash_of
+
+
+SET_ASIDE = "set-aside"   # under results/figures/: files moved out of the way, never deleted
+
+
+def _remove(paths) -> None:
+    for p in paths:
+        try:
+            p.unlink()
+        except OSError:
+            pass
+
+
+def _set_aside(folder: Path, paths) -> Path:
+    """Move files into ``folder/set-aside/`` (replacing what an earlier run put there under the
+    same name): files that disagree with their sidecar with no sign of a killed build may be a
+    co-author's edit of a figure file, which is not figkit's to delete."""
+    dest = folder / SET_ASIDE
+    dest.mkdir(exist_ok=True)
+    for p in paths:
+        try:
+            os.replace(p, dest / p.name)
+        except OSError:
+            pass
+    return dest
+
+
+def recover_figures(results: str, ids, formats, every: bool = False, current=None,
+                    styles_dir: Path | None = None) -> list[str]:
     """Markers and files of figures a killed build left (see the module docstring); returns the
-    ids whose files were removed to be built again.
+    ids whose files were removed (or set aside) to be built again.
 
     ``every`` (Snakemake's ``--keep-incomplete``, set in the cluster profiles): a failed job's
-    files are kept, and Snakemake then records them as finished and removes their markers
-    (``Job.postprocess(error=True)`` calls ``persistence.finished``, snakemake/jobs.py).  Within
-    Snakemake that is safe (``Job.prepare`` removes a job's old outputs before it runs, and the
-    sidecar is renamed last, so a cut-off figure lacks its sidecar and is built again), but files
-    written outside a job (``figkit render`` by hand, killed while renaming) can be a mix of two
-    builds with no marker.  So every figure whose files disagree with its sidecar's hashes is
-    removed and built again, marked or not (about 25 ms for the demo's 16 figures, 15 MB)."""
+    files are kept, and Snakemake then records them as finished, with the inputs and settings of
+    the job that failed, and removes their markers (``Job.postprocess(error=True)`` calls
+    ``persistence.finished``, snakemake/jobs.py).  Two consequences, both handled here:
+
+    * a figure whose job failed or never ran on the node (a cluster job killed for its time, a lost
+      node) keeps the previous build's files, which Snakemake now takes as current: every figure
+      whose sidecar disagrees with today's row fingerprint (``current(id)``), data or house style
+      (:func:`stale_reason`) has its files removed at the start of each run, before any job is
+      submitted, so that the run builds it again and a job that fails cannot leave them looking
+      current (Snakemake itself removes a job's old outputs before it runs it, so nothing is lost
+      that a rebuild would have kept);
+    * files written outside a job (``figkit render`` by hand, killed while renaming) can be a mix
+      of two builds with no marker: every figure whose files disagree with its sidecar's hashes
+      is built again, its files moved to ``results/figures/set-aside/`` rather than deleted (they
+      may be a co-author's edit).
+
+    About 25 ms for the demo's 16 figures (15 MB) plus one hash per data file."""
     from ..provenance import remove_leftovers
     folder = Path(results) / "figures"
     for p in remove_leftovers(folder):
@@ -101,28 +182,33 @@ def recover_figures(results: str, ids, formats, every: bool = False) -> list[str
     rebuilt = []
     if not every and not (SNAKEMAKE_DIR / "incomplete").is_dir():
         return rebuilt
+    hash_of = hasher()
     for rid in ids:
         keys = [f"{results}/figures/{rid}.{ext}" for ext in ("json", "stats.csv", *formats)]
         markers = [m for m in map(marker_path, keys) if m.is_file()]
         sidecar = Path(keys[0])
         others = [Path(k) for k in keys[1:]] + [folder / f"{rid}.values.csv"]
-        if not markers and not (every and disagrees_with_sidecar(sidecar, others)):
-            continue
-        present = [Path(k) for k in keys if Path(k).exists()]
-        if present and not figure_is_whole(sidecar, others):
-            for p in [*present, folder / f"{rid}.values.csv"]:
-                try:
-                    p.unlink()
-                except OSError:
-                    pass
+        present = [p for p in [sidecar, *others] if p.exists()]
+        why = (stale_reason(sidecar, current(rid), hash_of, styles_dir)
+               if every and current and present else None)
+        if why:
+            _remove(present)
             rebuilt.append(rid)
-            _say(f"figure '{rid}': its files were left half-written by a build that was killed; "
-                 "removed, it is built again")
-        for m in markers:
-            try:
-                m.unlink()
-            except OSError:
-                pass
+            _say(f"figure '{rid}': {why}; its old files are removed before it is built again "
+                 "(with keep-incomplete a failed cluster job would leave them looking current)")
+        elif markers or (every and disagrees_with_sidecar(sidecar, others)):
+            if present and not figure_is_whole(sidecar, others):
+                rebuilt.append(rid)
+                if markers:
+                    _remove(present)
+                    _say(f"figure '{rid}': its files were left half-written by a build that was "
+                         "killed; removed, it is built again")
+                else:
+                    dest = _set_aside(folder, present)
+                    _say(f"figure '{rid}': its files disagree with the SHA-256s its sidecar "
+                         f"records (a build killed while writing, or a file edited by hand); moved "
+                         f"to {dest}, it is built again")
+        _remove(markers)
     return rebuilt
 
 
@@ -219,8 +305,9 @@ def forget_run() -> None:
         pass
 
 
-def recover(results: str, ids, formats, every: bool = False) -> None:
-    """Everything above, for one real run of the main Snakemake process (``every``: see
-    :func:`recover_figures`)."""
+def recover(results: str, ids, formats, every: bool = False, current=None,
+            styles_dir: Path | None = None) -> None:
+    """Everything above, for one real run of the main Snakemake process (``every``, ``current``
+    and ``styles_dir``: see :func:`recover_figures`)."""
     recover_locks()
-    recover_figures(results, ids, formats, every)
+    recover_figures(results, ids, formats, every, current, styles_dir)
