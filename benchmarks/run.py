@@ -1111,12 +1111,12 @@ def bench_draft(sz, work, rows, details):
             proc.kill()
         fh.close()
     a, b = best_of(loop), best_of(sm)
-    details["10 figkit draft: row written to new preview PNG"] = {
+    details["12 figkit draft: row written to new preview PNG"] = {
         "seconds": a.get("wall_s"), "times": [r.get("wall_s") for r in loop],
         **({"error": a["error"]} if "error" in a else {}),
         "note": "default polling 0.5 s (half of it on average is waiting for the next look); the print "
                 "files follow in the same process"}
-    details["10 Snakemake: row written to the end of `snakemake --cores 2`"] = {
+    details["12 Snakemake: row written to the end of `snakemake --cores 2`"] = {
         "seconds": b.get("wall_s"), "times": [r.get("wall_s") for r in sm], "cpu_s": b.get("cpu_s"),
         **({"error": b["error"]} if "error" in b else {}),
         "note": "one figure rebuilt (PDF, PNG, SVG, sidecar, checks) through a warm interpreter started for it"}
