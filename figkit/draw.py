@@ -518,6 +518,7 @@ def build_figure(spec: FigureSpec, data: FigureData, note: str | None = None, *,
     _escape_left_controls(job.fig)
     record = job.record()
     record["margins"] = job.margin    # for figkit.compose (parts line up); not in the sidecar
+    _forget_ticks(job.axes)           # the figure handed on carries none of the layout's state
     return job.fig, record
 
 
