@@ -807,14 +807,26 @@ def preflight_project(project, ids=(), *, strict: bool = False) -> list[tuple[st
 
 def _up_to_date_check(sidecar: Path, project, spec) -> dict:
     """The figure was built from the data file, sheet row, style files and settings as they are
-    now: their SHA-256 (and the row's fingerprint of the settings it reads) equal the sidecar's,
-    so a figure left behind by a failed or partial build is caught here."""
-    from .data import input_record
+    now (:func:`changes_since_built`), so a figure left behind by a failed or partial build is
+    caught here."""
+    changed = changes_since_built(sidecar_record(sidecar), project, spec)
+    return _check("up to date", not changed, changed or None, "inputs and row as built",
+                  ("changed since the figure was built: " + ", ".join(changed) + "; rebuild it")
+                  if changed else "data files and sheet row unchanged since the build")
+
+
+def changes_since_built(record: dict, project, spec, input_record=None) -> list[str]:
+    """What changed since the figure of sidecar ``record`` was built: its data files, its sheet
+    row (and its parts' rows), its house style's files, the settings it reads (the row's
+    fingerprint, figkit's version in it).  Empty when it was built from them as they are now.
+    ``input_record``: figkit.data.input_record, or a caching stand-in for it (the workflow asks
+    for every figure at once, and several read the same file)."""
+    from .compose import parts_fingerprint
     from .provenance import row_sha256
     from .sheet import find_row
     from .spec import fingerprint
-    from .compose import parts_fingerprint
-    record = sidecar_record(sidecar)
+    if input_record is None:
+        from .data import input_record
     row = find_row(project.rows, spec.id)
     changed = []
     paths = spec.data_paths if hasattr(spec, "parts") else [spec.data_path]   # parts: every part's
@@ -845,9 +857,7 @@ def _up_to_date_check(sidecar: Path, project, spec) -> dict:
             and record["fingerprint"] != (parts_fingerprint(row, project.config, project.rows)
                                           if hasattr(spec, "parts") else fingerprint(row, project.config))):
         changed.append("settings it reads in config.yaml (or figkit's version)")
-    return _check("up to date", not changed, changed or None, "inputs and row as built",
-                  ("changed since the figure was built: " + ", ".join(changed) + "; rebuild it")
-                  if changed else "data files and sheet row unchanged since the build")
+    return changed
 
 
 def failure_lines(figure_id: str, result: dict) -> list[str]:

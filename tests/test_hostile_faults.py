@@ -234,38 +234,42 @@ def test_keep_incomplete_check_needs_evidence(tmp_path, monkeypatch):
 
 
 def test_keep_incomplete_finds_figures_older_than_their_row_data_or_style(project, tmp_path):
-    """stale_reason, on a real build's sidecar (in a copy of the project): nothing while row,
-    data and house style are as built; then each change is named (the figure's row, its data
-    file, a house-style file).  Hashes are hashlib's SHA-256 (FIPS 180-4)."""
+    """What the workflow asks with --keep-incomplete (figkit.preflight.changes_since_built, also
+    preflight's up-to-date check), on a real build's sidecar in a copy of the project: nothing
+    while row, data and house style are as built; then each change is named (the figure's row,
+    its data file, a house-style file).  Hashes are hashlib's SHA-256 (FIPS 180-4)."""
     import shutil
 
+    from figkit.preflight import changes_since_built
     from figkit.render import load_project
-    from figkit.spec import fingerprint
-    from figkit.workflow.recover import hasher, stale_reason
     copy = tmp_path / "copy"
     shutil.copytree(project, copy, symlinks=False)
-    sidecar = copy / "results" / "figures" / "taxa-by-season.json"
-    record = json.loads(sidecar.read_text())
-    p = load_project(copy)
-    row = next(r for r in p.rows if r.id == "taxa-by-season")
-    now = fingerprint(row, p.config)
-    assert record["fingerprint"] == now
-    styles = copy / p.config["styles_dir"]
-    cwd = os.getcwd()
-    os.chdir(copy)
-    try:
-        assert stale_reason(sidecar, now, hasher(), styles) is None
-        assert "sheet row" in stale_reason(sidecar, now + "x", hasher(), styles)
-        data = Path(record["inputs"][0]["path"])
-        saved = data.read_bytes()
-        data.write_bytes(saved + b"\n")
-        assert "data file" in stale_reason(sidecar, now, hasher(), styles)
-        data.write_bytes(saved)
-        style = styles / next(iter(record["style"]["files"]))
-        style.write_text(style.read_text() + "\n# edited\n")
-        assert "house-style file" in stale_reason(sidecar, now, hasher(), styles)
-    finally:
-        os.chdir(cwd)
+    record = json.loads((copy / "results" / "figures" / "taxa-by-season.json").read_text())
+
+    def changes():
+        p = load_project(copy)
+        return changes_since_built(record, p, p.spec("taxa-by-season"))
+    assert changes() == []
+    sheet = copy / "config" / "figures.tsv"
+    saved_sheet = sheet.read_text()
+    lines = saved_sheet.splitlines(keepends=True)
+    row = next(i for i, line in enumerate(lines) if line.startswith("taxa-by-season\t"))
+    head = lines[0].rstrip("\n").split("\t")
+    cells = lines[row].rstrip("\n").split("\t") + [""] * len(head)
+    cells[head.index("caption")] = "an edited caption"
+    lines[row] = "\t".join(cells[:len(head)]) + "\n"
+    sheet.write_text("".join(lines))
+    assert "its sheet row" in changes()
+    sheet.write_text(saved_sheet)
+    data = copy / record["inputs"][0]["path"]
+    saved = data.read_bytes()
+    data.write_bytes(saved + b"\n")
+    assert record["inputs"][0]["path"] in changes()
+    data.write_bytes(saved)
+    name = next(iter(record["style"]["files"]))
+    style = copy / load_project(copy).config["styles_dir"] / name
+    style.write_text(style.read_text() + "\n# edited\n")
+    assert f"style file {name}" in changes()
 
 
 def test_a_lock_no_recorded_run_took_is_left_alone(project):

@@ -37,6 +37,7 @@ figkit.workflow.warm_jobs()
 # ---- end of the warm-interpreter block ----------------------------------------------------------
 FK_RESULTS = FK_CONFIG["results"]
 FK_FORMATS = FK_CONFIG["formats"]
+import functools
 import hashlib
 import re
 from pathlib import Path
@@ -183,7 +184,30 @@ def _keep_incomplete() -> bool:
     return bool(getattr(workflow.execution_settings, "keep_incomplete", False))
 
 
-_FK_STYLES = Path(FK_CONFIG.root) / FK_CONFIG["styles_dir"]
+@functools.cache
+def _input_record(path, root):
+    """figkit.data.input_record (the file's SHA-256), once per file for all figures of a run."""
+    from figkit.data import input_record   # here, not at the top: it imports pandas
+    return input_record(path, root)
+
+
+def _stale(rid) -> list[str]:
+    """What changed since figure ``rid`` was built, as preflight's up-to-date check says it, for
+    figkit.workflow.recover with --keep-incomplete.  A row that cannot be built now: its old
+    files are out of date whatever they show."""
+    from figkit.files import read_json_object
+    from figkit.preflight import changes_since_built
+    from figkit.sheet import Project
+    spec = _spec(rid)
+    if isinstance(spec, FigkitError):
+        return ["its sheet row (it has an error now)"]
+    try:
+        record = read_json_object(Path(FK_RESULTS) / "figures" / f"{rid}.json")
+    except FigkitError:
+        return []          # no readable sidecar: no evidence (the hash check decides)
+    return changes_since_built(record, Project(FK_CONFIG, FK_ROWS), spec, _input_record)
+
+
 _FK_STAMPS_WRITTEN = []
 
 
@@ -204,7 +228,7 @@ def _write_stamps() -> None:
         # and as if current: then every figure's files are checked against its sidecar, and
         # against today's row, data and house style (figkit.workflow.recover.recover_figures)
         figkit.workflow.recover.recover(FK_RESULTS, FK_TARGETS, FK_FORMATS, every=_keep_incomplete(),
-                                        current=_stamp_value, styles_dir=_FK_STYLES)
+                                        stale=_stale)
     for rid in FK_TARGETS:
         if _stamp_is_current(rid):
             continue

@@ -83,49 +83,6 @@ def disagrees_with_sidecar(sidecar: Path, outputs: list[Path]) -> bool:
                for p in outputs)
 
 
-def stale_reason(sidecar: Path, fingerprint: str, hash_of, styles_dir: Path | None = None) -> str | None:
-    """Why a figure's files, whole or not, no longer show what the sheet, the data and the house
-    style ask for: the sidecar's ``fingerprint`` (its row and the settings it reads, figkit's
-    version) differs from ``fingerprint`` (today's), or a data file the sidecar lists (``inputs``,
-    path relative to the project) or a house-style file (``style.files``, in ``styles_dir``) now
-    has another SHA-256 (``hash_of(path)``).  None when they agree, and when there is no readable
-    sidecar or it records none of these (no evidence)."""
-    try:
-        record = json.loads(sidecar.read_text(encoding="utf-8"))
-    except (OSError, ValueError):
-        return None
-    if not isinstance(record, dict):
-        return None
-    built = record.get("fingerprint")
-    if isinstance(built, str) and built != fingerprint:
-        return "its sheet row, the settings it reads or figkit's version changed since it was built"
-    for item in record.get("inputs") or []:
-        path = Path(str(item.get("path", ""))) if isinstance(item, dict) else None
-        if path is not None and item.get("sha256") and path.is_file() and hash_of(path) != item["sha256"]:
-            return f"its data file {path} changed since it was built"
-    style = record.get("style")
-    files = style.get("files") if isinstance(style, dict) else None
-    if styles_dir is not None and isinstance(files, dict):
-        for name, digest in files.items():
-            path = Path(styles_dir) / str(name)
-            if digest and path.is_file() and hash_of(path) != digest:
-                return f"its house-style file {path} changed since it was built"
-    return None
-
-
-def hasher():
-    """sha256_file, each path hashed once per run (several figures read the same data file)."""
-    from ..provenance import sha256_file
-    seen: dict = {}
-
-    def hash_of(path: Path) -> str:
-        key = str(Path(path).resolve())
-        if key not in seen:
-            seen[key] = sha256_file(path)
-        return seen[key]
-    return hash_of
-
-
 SET_ASIDE = "set-aside"   # under results/figures/: files moved out of the way, never deleted
 
 
@@ -151,8 +108,7 @@ def _set_aside(folder: Path, paths) -> Path:
     return dest
 
 
-def recover_figures(results: str, ids, formats, every: bool = False, current=None,
-                    styles_dir: Path | None = None) -> list[str]:
+def recover_figures(results: str, ids, formats, every: bool = False, stale=None) -> list[str]:
     """Markers and files of figures a killed build left (see the module docstring); returns the
     ids whose files were removed (or set aside) to be built again.
 
@@ -163,8 +119,9 @@ def recover_figures(results: str, ids, formats, every: bool = False, current=Non
 
     * a figure whose job failed or never ran on the node (a cluster job killed for its time, a lost
       node) keeps the previous build's files, which Snakemake now takes as current: every figure
-      whose sidecar disagrees with today's row fingerprint (``current(id)``), data or house style
-      (:func:`stale_reason`) has its files removed at the start of each run, before any job is
+      whose sidecar disagrees with today's row, data, house style or settings (``stale(id)``: what
+      changed, as preflight's up-to-date check says it, figkit.preflight.changes_since_built) has
+      its files removed at the start of each run, before any job is
       submitted, so that the run builds it again and a job that fails cannot leave them looking
       current (Snakemake itself removes a job's old outputs before it runs it, so nothing is lost
       that a rebuild would have kept);
@@ -182,20 +139,19 @@ def recover_figures(results: str, ids, formats, every: bool = False, current=Non
     rebuilt = []
     if not every and not (SNAKEMAKE_DIR / "incomplete").is_dir():
         return rebuilt
-    hash_of = hasher()
     for rid in ids:
         keys = [f"{results}/figures/{rid}.{ext}" for ext in ("json", "stats.csv", *formats)]
         markers = [m for m in map(marker_path, keys) if m.is_file()]
         sidecar = Path(keys[0])
         others = [Path(k) for k in keys[1:]] + [folder / f"{rid}.values.csv"]
         present = [p for p in [sidecar, *others] if p.exists()]
-        why = (stale_reason(sidecar, current(rid), hash_of, styles_dir)
-               if every and current and present else None)
-        if why:
+        changed = stale(rid) if every and stale and present else None
+        if changed:
             _remove(present)
             rebuilt.append(rid)
-            _say(f"figure '{rid}': {why}; its old files are removed before it is built again "
-                 "(with keep-incomplete a failed cluster job would leave them looking current)")
+            _say(f"figure '{rid}': {', '.join(changed)} changed since it was built; its old files are "
+                 "removed before it is built again (with keep-incomplete a failed cluster job would "
+                 "leave them looking current)")
         elif markers or (every and disagrees_with_sidecar(sidecar, others)):
             if present and not figure_is_whole(sidecar, others):
                 rebuilt.append(rid)
@@ -305,9 +261,8 @@ def forget_run() -> None:
         pass
 
 
-def recover(results: str, ids, formats, every: bool = False, current=None,
-            styles_dir: Path | None = None) -> None:
-    """Everything above, for one real run of the main Snakemake process (``every``, ``current``
-    and ``styles_dir``: see :func:`recover_figures`)."""
+def recover(results: str, ids, formats, every: bool = False, stale=None) -> None:
+    """Everything above, for one real run of the main Snakemake process (``every`` and
+    ``stale``: see :func:`recover_figures`)."""
     recover_locks()
-    recover_figures(results, ids, formats, every, current, styles_dir)
+    recover_figures(results, ids, formats, every, stale)
